@@ -1,0 +1,346 @@
+"""The audio reader and the sidecar metadata: the only place in analysis/ that reads recordings.
+
+Audio goes through libsndfile (via soundfile), so any format it knows (FLAC, WAV, AIFF, OGG, ...) is read; samples
+come out as float32 in full-scale units, shape (frames, channels). A time range can be read alone (a seek, not a
+decode of the whole file).
+
+A recording's metadata lives in a sidecar JSON file beside it, ``<recording stem>.json``: Harken's own format,
+described in the README ("Sidecar metadata").
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import warnings
+from dataclasses import dataclass, field
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import soundfile as sf
+
+from .errors import AudioError, SidecarError
+
+__all__ = [
+    "AudioInfo",
+    "Audio",
+    "Sidecar",
+    "SidecarWarning",
+    "audio_info",
+    "read_audio",
+    "sidecar_path",
+    "read_sidecar",
+    "parse_sidecar",
+    "SIDECAR_FIELDS",
+]
+
+
+@dataclass(frozen=True)
+class AudioInfo:
+    """What a recording's header says: sample rate (Hz), channel count, frames, duration (s), container, encoding."""
+
+    path: str
+    sample_rate_hz: int
+    channels: int
+    frames: int
+    duration_s: float
+    format: str
+    subtype: str
+    size_bytes: int
+
+
+@dataclass(frozen=True, eq=False)
+class Audio:
+    """Decoded samples, float32 in full-scale units, shape (frames, channels), starting at ``start_s``."""
+
+    samples: np.ndarray
+    sample_rate_hz: int
+    start_s: float
+    info: AudioInfo
+
+    @property
+    def path(self) -> str:
+        return self.info.path
+
+    @property
+    def n_channels(self) -> int:
+        return int(self.samples.shape[1])
+
+    @property
+    def n_frames(self) -> int:
+        return int(self.samples.shape[0])
+
+    def channel(self, index: int) -> np.ndarray:
+        """One channel as a 1-D float32 array; an index beyond the file's channels is an AudioError."""
+        if not 0 <= index < self.n_channels:
+            raise AudioError(
+                self.path, f"channel {index} requested but the file has {self.n_channels} channel(s)"
+            )
+        return self.samples[:, index]
+
+
+def _check_file(path: Path) -> int:
+    if not path.exists():
+        raise AudioError(path, "file does not exist")
+    if not path.is_file():
+        raise AudioError(path, "not a regular file")
+    size = path.stat().st_size
+    if size == 0:
+        raise AudioError(path, "file is empty (0 bytes)")
+    return size
+
+
+def _open_error(path: Path, exc: Exception) -> AudioError:
+    text = str(exc).strip() or type(exc).__name__
+    # libsndfile's message repeats the path; keep the reason only.
+    text = text.replace(f"Error opening {str(path)!r}: ", "").replace(str(path), "<file>")
+    return AudioError(path, f"not a readable audio file ({text})")
+
+
+def audio_info(path) -> AudioInfo:
+    """Read a recording's header only. Raises AudioError naming the file and the reason."""
+    path = Path(path)
+    size = _check_file(path)
+    try:
+        info = sf.info(str(path))
+    except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
+        raise _open_error(path, exc) from None
+    if info.samplerate <= 0 or info.channels <= 0:
+        raise AudioError(path, f"header is invalid (sample rate {info.samplerate}, channels {info.channels})")
+    return AudioInfo(
+        path=str(path),
+        sample_rate_hz=int(info.samplerate),
+        channels=int(info.channels),
+        frames=int(info.frames),
+        duration_s=float(info.frames) / float(info.samplerate),
+        format=str(info.format),
+        subtype=str(info.subtype),
+        size_bytes=int(size),
+    )
+
+
+def read_audio(path, *, start_s: float | None = None, stop_s: float | None = None) -> Audio:
+    """Decode a recording (or only ``start_s``..``stop_s``, seconds from its start) to float32 (frames, channels).
+
+    Raises AudioError for an empty, unreadable or truncated file, and for NaN or infinite samples.
+    """
+    path = Path(path)
+    info = audio_info(path)
+    fs = info.sample_rate_hz
+    first = 0 if start_s is None else int(round(float(start_s) * fs))
+    last = info.frames if stop_s is None else int(round(float(stop_s) * fs))
+    if start_s is not None and (not math.isfinite(start_s) or start_s < 0):
+        raise AudioError(path, f"start_s must be a finite time >= 0 s, got {start_s!r}")
+    if stop_s is not None and (not math.isfinite(stop_s) or stop_s <= (start_s or 0.0)):
+        raise AudioError(path, f"stop_s must be after start_s, got start_s={start_s!r}, stop_s={stop_s!r}")
+    first = min(first, info.frames)
+    last = min(max(last, first), info.frames)
+    wanted = last - first
+    try:
+        with sf.SoundFile(str(path)) as handle:
+            if first:
+                handle.seek(first)
+            samples = handle.read(wanted, dtype="float32", always_2d=True)
+    except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
+        raise AudioError(path, f"decoding failed after the header was read ({exc}); the file may be truncated") from None
+    if samples.shape[0] < wanted:
+        raise AudioError(
+            path,
+            f"truncated: the header promises {info.frames} frames but only {first + samples.shape[0]} "
+            "could be decoded",
+        )
+    if samples.size and not np.isfinite(samples).all():
+        bad = int(np.count_nonzero(~np.isfinite(samples)))
+        raise AudioError(path, f"contains {bad} non-finite sample(s) (NaN or infinity)")
+    return Audio(samples=samples, sample_rate_hz=fs, start_s=first / fs, info=info)
+
+
+# --------------------------------------------------------------------------------------------------- sidecar
+
+#: field -> (required, description). The one definition of the sidecar format.
+SIDECAR_FIELDS: dict[str, tuple[bool, str]] = {
+    "site": (True, "site name (text)"),
+    "rig": (True, "rig name (text)"),
+    "lot": (True, "lot number (text)"),
+    "unit": (True, "unit (one device) identifier (text)"),
+    "actuation": (True, "actuation number within the unit (integer, 1-based)"),
+    "recorded_at": (True, "time of recording, ISO 8601 with UTC offset"),
+    "profile": (True, "device profile name (text)"),
+    "channels": (False, 'channel map, e.g. {"mic": 0, "marker": 1}'),
+    "markers_s": (False, "marker times in seconds from the recording start (list of numbers)"),
+    "notes": (False, "free text"),
+}
+_CHANNEL_ROLES = ("mic", "marker")
+
+
+class SidecarWarning(UserWarning):
+    """A sidecar has fields Harken does not know; they are kept."""
+
+
+@dataclass(frozen=True)
+class Sidecar:
+    """A recording's metadata, validated. ``extra`` keeps unknown fields; ``warnings`` says what was odd."""
+
+    path: str
+    site: str
+    rig: str
+    lot: str
+    unit: str
+    actuation: int
+    recorded_at: datetime
+    profile: str
+    channels: dict[str, int] | None = None
+    markers_s: tuple[float, ...] | None = None
+    notes: str | None = None
+    extra: dict[str, Any] = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+
+    def to_json(self) -> dict[str, Any]:
+        """The sidecar as JSON-ready data, in the file's own field names."""
+        out: dict[str, Any] = {
+            "site": self.site,
+            "rig": self.rig,
+            "lot": self.lot,
+            "unit": self.unit,
+            "actuation": self.actuation,
+            "recorded_at": self.recorded_at.isoformat(),
+            "profile": self.profile,
+        }
+        if self.channels is not None:
+            out["channels"] = dict(self.channels)
+        if self.markers_s is not None:
+            out["markers_s"] = list(self.markers_s)
+        if self.notes is not None:
+            out["notes"] = self.notes
+        out.update(self.extra)
+        return out
+
+
+def sidecar_path(recording_path) -> Path:
+    """The sidecar that belongs to a recording: ``<stem>.json`` in the same folder."""
+    p = Path(recording_path)
+    return p.with_name(p.stem + ".json")
+
+
+def read_sidecar(path) -> Sidecar:
+    """Read and validate a sidecar JSON file (give the JSON's path, or the recording's: its sidecar is found)."""
+    path = Path(path)
+    if path.suffix.lower() != ".json":
+        path = sidecar_path(path)
+    if not path.exists():
+        raise SidecarError(path, "sidecar metadata file is missing (expected beside the recording)")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise SidecarError(path, f"sidecar is not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+    except OSError as exc:
+        raise SidecarError(path, f"sidecar cannot be read ({exc.strerror or exc})") from None
+    try:
+        obj = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise SidecarError(path, f"sidecar is not valid JSON ({exc.msg} at line {exc.lineno} column {exc.colno})") from None
+    return parse_sidecar(obj, source=path)
+
+
+def _text(obj: dict, name: str, source) -> str:
+    value = obj[name]
+    if not isinstance(value, str) or not value.strip():
+        raise SidecarError(source, f"field {name!r} must be non-empty text, got {value!r}", field=name)
+    return value.strip()
+
+
+def parse_sidecar(obj: Any, *, source) -> Sidecar:
+    """Validate sidecar data already parsed from JSON. Errors name the field and ``source``."""
+    if not isinstance(obj, dict):
+        raise SidecarError(source, f"sidecar must be a JSON object, got {type(obj).__name__}")
+    for name, (required, what) in SIDECAR_FIELDS.items():
+        if required and name not in obj:
+            raise SidecarError(source, f"required field {name!r} is missing ({what})", field=name)
+    site, rig, lot, unit, profile = (_text(obj, k, source) for k in ("site", "rig", "lot", "unit", "profile"))
+
+    actuation = obj["actuation"]
+    if isinstance(actuation, bool) or not isinstance(actuation, int) or actuation < 1:
+        raise SidecarError(
+            source, f"field 'actuation' must be an integer >= 1 (1-based within the unit), got {actuation!r}",
+            field="actuation",
+        )
+
+    raw_time = obj["recorded_at"]
+    if not isinstance(raw_time, str):
+        raise SidecarError(source, f"field 'recorded_at' must be ISO 8601 text, got {raw_time!r}", field="recorded_at")
+    try:
+        recorded_at = datetime.fromisoformat(raw_time.strip())
+    except ValueError:
+        raise SidecarError(
+            source, f"field 'recorded_at' is not an ISO 8601 time: {raw_time!r}", field="recorded_at"
+        ) from None
+    if recorded_at.tzinfo is None or recorded_at.utcoffset() is None:
+        raise SidecarError(
+            source,
+            f"field 'recorded_at' must carry a UTC offset (e.g. 2026-03-02T09:14:05+01:00), got {raw_time!r}",
+            field="recorded_at",
+        )
+
+    channels = None
+    if obj.get("channels") is not None:
+        raw = obj["channels"]
+        if not isinstance(raw, dict):
+            raise SidecarError(source, f"field 'channels' must be an object like {{\"mic\": 0}}, got {raw!r}", field="channels")
+        channels = {}
+        for role, index in raw.items():
+            if role not in _CHANNEL_ROLES:
+                raise SidecarError(
+                    source, f"field 'channels' has unknown role {role!r} (allowed: {', '.join(_CHANNEL_ROLES)})",
+                    field="channels",
+                )
+            if isinstance(index, bool) or not isinstance(index, int) or index < 0:
+                raise SidecarError(
+                    source, f"field 'channels': {role!r} must be a channel index >= 0, got {index!r}", field="channels"
+                )
+            channels[role] = index
+        if "mic" not in channels:
+            raise SidecarError(source, "field 'channels' must name the 'mic' channel", field="channels")
+        if len(set(channels.values())) != len(channels):
+            raise SidecarError(source, f"field 'channels' maps two roles to one channel: {raw!r}", field="channels")
+
+    markers = None
+    if obj.get("markers_s") is not None:
+        raw = obj["markers_s"]
+        if not isinstance(raw, list) or not all(
+            isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) and v >= 0 for v in raw
+        ):
+            raise SidecarError(
+                source, f"field 'markers_s' must be a list of times in seconds >= 0, got {raw!r}", field="markers_s"
+            )
+        if any(b <= a for a, b in zip(raw, raw[1:])):
+            raise SidecarError(source, f"field 'markers_s' must be increasing, got {raw!r}", field="markers_s")
+        markers = tuple(float(v) for v in raw)
+
+    notes = obj.get("notes")
+    if notes is not None and not isinstance(notes, str):
+        raise SidecarError(source, f"field 'notes' must be text, got {notes!r}", field="notes")
+
+    extra = {k: v for k, v in obj.items() if k not in SIDECAR_FIELDS}
+    notes_out: tuple[str, ...] = ()
+    if extra:
+        msg = f"{source}: unknown sidecar field(s) kept but not used: {', '.join(sorted(extra))}"
+        warnings.warn(msg, SidecarWarning, stacklevel=2)
+        notes_out = (msg,)
+
+    return Sidecar(
+        path=str(source),
+        site=site,
+        rig=rig,
+        lot=lot,
+        unit=unit,
+        actuation=actuation,
+        recorded_at=recorded_at,
+        profile=profile,
+        channels=channels,
+        markers_s=markers,
+        notes=notes,
+        extra=extra,
+        warnings=notes_out,
+    )

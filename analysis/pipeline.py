@@ -1,0 +1,312 @@
+"""One recording in, one result out: quality checks, events, short-time spectra and band features.
+
+``analyse_signals`` is the pure composition of analysis.signal (arrays in, a ``RecordingResult`` out).
+``analyse_file`` is the edge around it: it reads the recording and its sidecar with analysis.io and resolves the
+device profile, then calls ``analyse_signals``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Iterable
+
+import numpy as np
+
+from . import io
+from .errors import AudioError
+from .profiles import BandSpec, DeviceProfile, EventSpec, load_profile
+from .signal import bands as _bands
+from .signal import events as _events
+from .signal import features as _features
+from .signal import quality as _quality
+
+__all__ = ["RecordingResult", "analyse_signals", "analyse_file", "band_layout", "markers_for"]
+
+
+@dataclass(frozen=True, eq=False)
+class RecordingResult:
+    """Everything the analysis found in one recording (times in s from the recording start)."""
+
+    path: str
+    profile: str
+    sample_rate_hz: int
+    n_channels: int
+    duration_s: float
+    qc: tuple  # of signal.quality.QCResult
+    events: tuple  # of signal.events.EventTiming, one per profile event, in profile order
+    features: dict  # event name -> signal.features.EventFeatures (found events only)
+    markers_s: tuple[float, ...]
+    marker_source: str
+    notes: tuple[str, ...] = ()
+    sidecar: io.Sidecar | None = field(default=None, repr=False)
+
+    @property
+    def passed_qc(self) -> bool:
+        return all(r.passed for r in self.qc)
+
+    @property
+    def failed_checks(self) -> tuple[str, ...]:
+        return tuple(r.check for r in self.qc if not r.passed)
+
+    def event(self, name: str):
+        for ev in self.events:
+            if ev.name == name:
+                return ev
+        raise KeyError(name)
+
+    def to_json(self) -> dict:
+        """The result as JSON-ready data (the `harken analyse --json` object, without monitoring)."""
+        return {
+            "recording": {
+                "path": self.path,
+                "profile": self.profile,
+                "sample_rate_hz": self.sample_rate_hz,
+                "channels": self.n_channels,
+                "duration_s": _num(self.duration_s),
+                "markers_s": [_num(m) for m in self.markers_s],
+                "marker_source": self.marker_source,
+                "passed_qc": self.passed_qc,
+                "notes": list(self.notes),
+                "metadata": self.sidecar.to_json() if self.sidecar is not None else None,
+            },
+            "qc": [
+                {"check": r.check, "value": _num(r.value), "limit": _num(r.limit), "passed": bool(r.passed),
+                 "detail": r.detail}
+                for r in self.qc
+            ],
+            "events": [
+                {
+                    "name": ev.name,
+                    "found": bool(ev.found),
+                    "onset_s": _num(ev.onset_s),
+                    "end_s": _num(ev.end_s),
+                    "duration_s": _num(ev.duration_s),
+                    "peak_dbfs": _num(ev.peak_dbfs),
+                    "latency_s": _num(ev.latency_s),
+                    "method": ev.method,
+                    "reason": ev.reason,
+                }
+                for ev in self.events
+            ],
+            "features": {
+                name: {
+                    "slices": int(f.levels_db.shape[0]),
+                    "bands": int(f.levels_db.shape[1]),
+                    "band_centres_hz": [round(float(c), 3) for c in f.band_centres_hz],
+                    "slice_times_s": [round(float(t), 6) for t in f.slice_times_s],
+                    "reference": f.reference,
+                    "dominant_hz": _num(f.dominant_hz),
+                    "centroid_hz": _num(f.centroid_hz),
+                    "band_energy_db": _num(f.band_energy_db),
+                    "padded_slices": int(f.padded_slices),
+                }
+                for name, f in self.features.items()
+            },
+        }
+
+
+def _num(x):
+    """JSON has no NaN or infinity: those become null."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def band_layout(spec: BandSpec):
+    """The band layout a profile's band spec describes."""
+    if spec.kind == "third_octave":
+        return _bands.third_octave_bands(fmin_hz=spec.fmin_hz, fmax_hz=spec.fmax_hz)
+    return _bands.linear_bands(fmin_hz=spec.fmin_hz, fmax_hz=spec.fmax_hz, n_bands=spec.n_bands)
+
+
+def markers_for(
+    n_channels: int, profile: DeviceProfile, sidecar: io.Sidecar | None
+) -> tuple[int, int | None, str]:
+    """(mic channel, marker channel or None, where markers come from) for a file of ``n_channels``.
+
+    The sidecar's ``markers_s`` win over a marker channel; the sidecar's channel map wins over the profile's.
+    """
+    channels = dict(profile.channels)
+    if sidecar is not None and sidecar.channels is not None:
+        channels = dict(sidecar.channels)
+    mic = channels.get("mic", 0)
+    if sidecar is not None and sidecar.markers_s is not None:
+        return mic, None, "sidecar markers_s"
+    marker = channels.get("marker")
+    if marker is None:
+        return mic, None, "none"
+    if marker >= n_channels:
+        return mic, None, f"marker channel {marker} (absent from a {n_channels}-channel file)"
+    return mic, marker, f"marker channel {marker}"
+
+
+def analyse_signals(
+    mic: np.ndarray,
+    *,
+    sample_rate_hz: int,
+    profile: DeviceProfile,
+    marker: np.ndarray | None = None,
+    markers_s: Iterable[float] | None = None,
+    marker_source: str = "none",
+    offset_db: float = 0.0,
+    n_channels: int = 1,
+    path: str = "<signal>",
+    sidecar: io.Sidecar | None = None,
+) -> RecordingResult:
+    """Analyse one recording's microphone signal (full-scale units) against a device profile.
+
+    Markers come from ``markers_s`` (s) if given, else from the rising edges of ``marker``.
+    ``offset_db`` is added to band levels (a calibration: dBFS -> dB re 20 µPa).
+    """
+    fs = int(sample_rate_hz)
+    q = profile.quality
+    mic = np.asarray(mic)
+    notes: list[str] = []
+
+    rate_ok = profile.sample_rate_min_hz <= fs <= profile.sample_rate_max_hz
+    qc = [
+        _quality.check_sample_rate(fs, min_hz=profile.sample_rate_min_hz, max_hz=profile.sample_rate_max_hz),
+        _quality.check_duration(mic.shape[0], sample_rate_hz=fs, min_duration_s=profile.min_duration_s),
+        _quality.check_silence(mic, min_rms_dbfs=q.min_rms_dbfs),
+        _quality.check_clipping(
+            mic, clip_level=q.clip_level, min_run=q.clip_min_run, max_fraction=q.max_clipped_fraction
+        ),
+        _quality.check_dropouts(mic, sample_rate_hz=fs, max_dropout_s=q.max_dropout_s),
+        _quality.check_dc_offset(mic, max_dc_offset=q.max_dc_offset),
+    ]
+
+    # Markers
+    if markers_s is not None:
+        markers = tuple(float(m) for m in markers_s)
+    elif marker is not None:
+        markers = tuple(float(t) for t in _events.marker_edges(np.asarray(marker), sample_rate_hz=fs))
+    else:
+        markers = ()
+    expected = profile.n_markers
+    if expected:
+        qc.append(_quality.check_markers(len(markers), expected, source=marker_source))
+
+    # Events, in profile order (an event may search relative to an earlier one).
+    timings: dict[str, object] = {}
+    for spec in profile.events:
+        timings[spec.name] = _find(mic, fs, spec, markers, timings)
+    events = tuple(timings[s.name] for s in profile.events)
+
+    found = [ev for ev in events if ev.found]
+    if found:
+        first = min(ev.onset_s for ev in found)
+        qc.append(
+            _quality.check_snr(
+                mic, sample_rate_hz=fs, first_event_s=first, background_max_s=q.background_max_s,
+                min_snr_db=q.min_snr_db,
+            )
+        )
+    else:
+        qc.append(_quality.QCResult("snr", float("nan"), q.min_snr_db, False, "no event found, so no event level"))
+
+    features = {}
+    if not rate_ok:
+        notes.append(f"no band features: sample rate {fs} Hz is outside the profile's range")
+    else:
+        for spec, ev in zip(profile.events, events):
+            if not ev.found:
+                continue
+            if spec.bands.fmax_hz >= fs / 2:
+                notes.append(f"{spec.name}: no band features, fmax {spec.bands.fmax_hz:g} Hz >= Nyquist {fs / 2:g} Hz")
+                continue
+            features[spec.name] = _features.event_features(
+                mic,
+                sample_rate_hz=fs,
+                onset_s=ev.onset_s,
+                length_s=spec.length_s,
+                slice_window_s=spec.slice_window_s,
+                slice_hop_s=spec.slice_hop_s,
+                bands=band_layout(spec.bands),
+                weighting=spec.bands.weighting,
+                offset_db=offset_db,
+                name=spec.name,
+            )
+
+    return RecordingResult(
+        path=path,
+        profile=profile.name,
+        sample_rate_hz=fs,
+        n_channels=n_channels,
+        duration_s=mic.shape[0] / fs if fs else float("nan"),
+        qc=tuple(qc),
+        events=events,
+        features=features,
+        markers_s=markers,
+        marker_source=marker_source,
+        notes=tuple(notes),
+        sidecar=sidecar,
+    )
+
+
+def _find(mic, fs, spec: EventSpec, markers, timings):
+    """Search window for one event: its marker if present, else its onset window (absolute or after an event)."""
+    max_length = spec.length_s
+    if spec.find == "marker" and spec.marker is not None and len(markers) >= spec.marker:
+        m = markers[spec.marker - 1]
+        return _events.find_event(
+            mic, sample_rate_hz=fs, name=spec.name, search_start_s=m + spec.window_s[0],
+            search_stop_s=m + spec.window_s[1], marker_s=m, max_length_s=max_length,
+        )
+    start, stop = spec.search_s
+    if spec.after is not None:
+        base = timings.get(spec.after)
+        if base is None or not base.found:
+            return _events.EventTiming(
+                name=spec.name, found=False, onset_s=math.nan, end_s=math.nan, duration_s=math.nan,
+                peak_dbfs=math.nan, latency_s=math.nan, method="missing",
+                reason=f"its search window is relative to {spec.after!r}, which was not found",
+            )
+        start, stop = base.onset_s + start, base.onset_s + stop
+    return _events.find_event(
+        mic, sample_rate_hz=fs, name=spec.name, search_start_s=start, search_stop_s=stop, marker_s=None,
+        max_length_s=max_length,
+    )
+
+
+def analyse_file(
+    path,
+    *,
+    profile: DeviceProfile | str | None = None,
+    profile_dirs: Iterable[str | Path] = (),
+    offset_db: float = 0.0,
+    require_sidecar: bool = True,
+) -> RecordingResult:
+    """Read a recording and its sidecar and analyse it. The profile is the sidecar's unless one is given.
+
+    Raises AudioError / SidecarError / ProfileError (all AnalysisError) naming the file and the reason.
+    """
+    path = Path(path)
+    info = io.audio_info(path)  # header first: a non-audio file fails before we look for its sidecar
+    sidecar = None
+    if require_sidecar or io.sidecar_path(path).exists():
+        sidecar = io.read_sidecar(io.sidecar_path(path))
+    if profile is None:
+        if sidecar is None:
+            raise AudioError(path, "no device profile given and no sidecar to name one")
+        profile = sidecar.profile
+    if not isinstance(profile, DeviceProfile):
+        profile = load_profile(profile, search_dirs=profile_dirs)
+    audio = io.read_audio(path)
+    mic_index, marker_index, source = markers_for(audio.n_channels, profile, sidecar)
+    if mic_index >= audio.n_channels:
+        raise AudioError(path, f"microphone channel {mic_index} requested but the file has {audio.n_channels} channel(s)")
+    return analyse_signals(
+        audio.channel(mic_index),
+        sample_rate_hz=info.sample_rate_hz,
+        profile=profile,
+        marker=audio.channel(marker_index) if marker_index is not None else None,
+        markers_s=sidecar.markers_s if sidecar is not None else None,
+        marker_source=source,
+        offset_db=offset_db,
+        n_channels=audio.n_channels,
+        path=str(path),
+        sidecar=sidecar,
+    )
