@@ -55,6 +55,7 @@ class EventSpec:
     slice_window_s: float
     slice_hop_s: float
     bands: BandSpec
+    detector: str = "flux"  # "flux" (spectral flux: strikes, clicks) or "energy" (level rise: swelling sounds)
 
     @property
     def n_slices(self) -> int:
@@ -157,7 +158,9 @@ _AUDIO_KEYS = {"sample_rate_min_hz", "sample_rate_max_hz", "min_duration_s", "ch
 _BAND_KEYS = {"kind", "fmin_hz", "fmax_hz", "n_bands", "weighting"}
 _EVENT_KEYS = {
     "name", "find", "marker", "window_s", "search_s", "after", "length_s", "slice_window_s", "slice_hop_s", "bands",
+    "detector",
 }
+_DETECTORS = ("flux", "energy")
 _WEIGHTINGS = ("none", "A")
 _BAND_KINDS = ("third_octave", "linear")
 _FINDS = ("marker", "onset")
@@ -336,6 +339,7 @@ def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
                 if k in ev:
                     c.fail(p + k, "only applies to find = 'marker'")
         search = c.pair(ev, "search_s", p + "search_s", required=True)
+        detector = c.text(ev, "detector", p + "detector", "flux", choices=_DETECTORS)
         after = ev.get("after")
         if after is not None:
             if not isinstance(after, str) or not any(e.name == after for e in events):
@@ -355,7 +359,7 @@ def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
         events.append(
             EventSpec(
                 name=ev_name, find=find, marker=marker, window_s=window, search_s=search, after=after,
-                length_s=length, slice_window_s=win, slice_hop_s=hop, bands=ev_bands,
+                length_s=length, slice_window_s=win, slice_hop_s=hop, bands=ev_bands, detector=detector,
             )
         )
     markers = sorted(e.marker for e in events if e.marker is not None)

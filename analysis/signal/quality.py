@@ -1,0 +1,334 @@
+"""Recording quality checks: is this recording fit to analyse?
+
+Each check takes a signal (1-D array, full-scale units, ±1.0 = full scale) or a number and returns one
+`QCResult`. The checks do not raise for a bad recording, only for bad parameters (`ParameterError`).
+
+Levels are RMS levels re full scale: L = 20·log10(rms), so a full-scale sine reads -3.01 dBFS and a full-scale
+square wave 0 dBFS. An all-zero stretch has no finite level; it reads `LEVEL_FLOOR_DBFS` (-300 dBFS) so that every
+value stays finite and JSON-safe, and it still fails any level limit.
+
+Non-finite input (NaN, ±inf): the audio reader rejects such files, but the signal checks stay safe on them. A
+check whose statistic a non-finite sample would corrupt (DC offset, silence, SNR) returns value NaN and
+passed=False with a detail that says how many samples were non-finite; clipping counts ±inf as at the rail and
+NaN as not; dropout looks only at exact zeros. Nothing loops over samples, so nothing hangs.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from analysis.errors import ParameterError
+
+__all__ = [
+    "QCResult",
+    "CHECK_NAMES",
+    "LEVEL_FLOOR_DBFS",
+    "check_clipping",
+    "check_dropouts",
+    "check_dc_offset",
+    "check_duration",
+    "check_silence",
+    "check_sample_rate",
+    "check_snr",
+    "check_markers",
+    "run_quality_checks",
+]
+
+CHECK_NAMES = ("clipping", "dropout", "dc_offset", "duration", "silence", "sample_rate", "snr", "marker")
+# Level reported for an all-zero stretch: finite, JSON-safe, below any sensible limit.
+LEVEL_FLOOR_DBFS = -300.0
+_FLOOR_MEAN_SQUARE = 10.0 ** (LEVEL_FLOOR_DBFS / 10.0)
+
+
+@dataclass(frozen=True)
+class QCResult:
+    """Outcome of one quality check.
+
+    check: one of CHECK_NAMES. value: the measured statistic, limit: the limit it was compared with (both floats,
+    NaN where not applicable; units in `detail`). passed: True when the recording is fit on this count.
+    detail: one plain sentence with the numbers and units.
+    """
+
+    check: str
+    value: float
+    limit: float
+    passed: bool
+    detail: str
+
+
+# ---------------------------------------------------------------- parameter validation (shared with events.py)
+
+def _number(name: str, value, *, low: float | None = None, high: float | None = None,
+            low_open: bool = False) -> float:
+    """A finite float in [low, high] (or (low, high] with low_open), else ParameterError naming the parameter."""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ParameterError(f"{name} must be a number; got {value!r}") from None
+    bad = not math.isfinite(v)
+    if low is not None:
+        bad = bad or (v <= low if low_open else v < low)
+    if high is not None:
+        bad = bad or v > high
+    if bad:
+        lo = "" if low is None else (f" > {low:g}" if low_open else f" >= {low:g}")
+        hi = "" if high is None else f" <= {high:g}"
+        both = " and" if lo and hi else ""
+        raise ParameterError(f"{name} must be a finite number{lo}{both}{hi}; got {value!r}")
+    return v
+
+
+def _integer(name: str, value, *, low: int) -> int:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
+        raise ParameterError(f"{name} must be an integer >= {low}; got {value!r}")
+    return int(value)
+
+
+def _signal(name: str, x) -> np.ndarray:
+    """The signal as a 1-D float array (float32 kept, anything else as float64)."""
+    a = np.asarray(x)
+    if a.ndim != 1:
+        raise ParameterError(f"{name} must be a 1-D array of samples; got an array of shape {a.shape}")
+    if a.dtype != np.float32:
+        try:
+            a = a.astype(np.float64, copy=False)
+        except (TypeError, ValueError):
+            raise ParameterError(f"{name} must hold numbers; got dtype {a.dtype}") from None
+    return a
+
+
+def _runs(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Start indices and lengths of the runs of True in a 1-D boolean mask (vectorised with np.diff)."""
+    padded = np.concatenate(([0], mask.astype(np.int8), [0]))
+    change = np.diff(padded)
+    starts = np.flatnonzero(change == 1)
+    stops = np.flatnonzero(change == -1)
+    return starts, stops - starts
+
+
+def _mean_square_db(ms: float | np.ndarray):
+    """10·log10 of a mean square, with all-zero input at LEVEL_FLOOR_DBFS."""
+    return 10.0 * np.log10(np.maximum(ms, _FLOOR_MEAN_SQUARE))
+
+
+def _non_finite(x: np.ndarray) -> int:
+    return int(x.size - np.count_nonzero(np.isfinite(x)))
+
+
+def _not_evaluated(check: str, limit: float, n_bad: int, n: int) -> QCResult:
+    return QCResult(check, math.nan, limit, False,
+                    f"Not evaluated: {n_bad} of {n} samples are not finite (NaN or infinite).")
+
+
+def _empty(check: str, limit: float) -> QCResult:
+    return QCResult(check, math.nan, limit, False, "Not evaluated: the signal has no samples.")
+
+
+def _ms(seconds: float) -> str:
+    return f"{seconds * 1e3:.1f} ms"
+
+
+# ---------------------------------------------------------------- checks
+
+def check_clipping(x, *, clip_level: float = 0.999, min_run: int = 3, max_fraction: float = 1e-4) -> QCResult:
+    """Fraction of samples in runs of >= min_run consecutive samples with |x| >= clip_level (full scale).
+
+    value: that fraction (0..1); limit: max_fraction; passed: value <= max_fraction. NaN samples are never at
+    the rail, ±inf always are.
+    """
+    x = _signal("x", x)
+    level = _number("clip_level", clip_level, low=0.0, low_open=True)
+    run = _integer("min_run", min_run, low=1)
+    limit = _number("max_fraction", max_fraction, low=0.0, high=1.0)
+    if x.size == 0:
+        return _empty("clipping", limit)
+    starts, lengths = _runs(np.abs(x) >= level)
+    long_runs = lengths[lengths >= run]
+    fraction = float(long_runs.sum()) / x.size
+    passed = fraction <= limit
+    detail = (f"{fraction * 100:.3g}% of samples in {long_runs.size} run{'s' if long_runs.size != 1 else ''} "
+              f"of {run} or more samples at or above {level:g} FS (limit {limit * 100:.3g}%).")
+    return QCResult("clipping", fraction, limit, passed, detail)
+
+
+def check_dropouts(x, *, sample_rate_hz: float, max_dropout_s: float = 0.002) -> QCResult:
+    """Longest run of exact zeros, in s; passed when it is no longer than max_dropout_s.
+
+    The detail also counts the runs of zeros longer than the limit. Isolated exact zeros are ordinary in
+    quantised audio, so only the longest run is judged.
+    """
+    x = _signal("x", x)
+    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    limit = _number("max_dropout_s", max_dropout_s, low=0.0)
+    if x.size == 0:
+        return _empty("dropout", limit)
+    _, lengths = _runs(x == 0)
+    longest = float(lengths.max()) / fs if lengths.size else 0.0
+    n_over = int(np.count_nonzero(lengths / fs > limit))
+    passed = longest <= limit
+    detail = (f"Longest run of exact zeros {_ms(longest)}; {n_over} run{'s' if n_over != 1 else ''} "
+              f"longer than the limit of {_ms(limit)}.")
+    return QCResult("dropout", longest, limit, passed, detail)
+
+
+def check_dc_offset(x, *, max_dc_offset: float = 0.01) -> QCResult:
+    """|mean of x| in full-scale units; passed when it is no more than max_dc_offset."""
+    x = _signal("x", x)
+    limit = _number("max_dc_offset", max_dc_offset, low=0.0)
+    if x.size == 0:
+        return _empty("dc_offset", limit)
+    n_bad = _non_finite(x)
+    if n_bad:
+        return _not_evaluated("dc_offset", limit, n_bad, x.size)
+    dc = abs(float(np.mean(x, dtype=np.float64)))
+    passed = dc <= limit
+    return QCResult("dc_offset", dc, limit, passed,
+                    f"Mean (DC offset) {dc:.4f} FS in magnitude (limit {limit:.4f} FS).")
+
+
+def check_duration(n_samples: int, *, sample_rate_hz: float, min_duration_s: float) -> QCResult:
+    """Recording length n_samples/sample_rate_hz in s; passed when it is at least min_duration_s."""
+    n = _integer("n_samples", n_samples, low=0)
+    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    limit = _number("min_duration_s", min_duration_s, low=0.0)
+    duration = n / fs
+    passed = duration >= limit
+    return QCResult("duration", duration, limit, passed,
+                    f"Recording lasts {duration:.3f} s ({n} samples at {fs:g} Hz); at least {limit:.3f} s needed.")
+
+
+def check_silence(x, *, min_rms_dbfs: float = -70.0) -> QCResult:
+    """Overall RMS level 20·log10(rms) in dBFS; passed when it is at least min_rms_dbfs.
+
+    An all-zero signal reads LEVEL_FLOOR_DBFS (-300 dBFS) and fails.
+    """
+    x = _signal("x", x)
+    limit = _number("min_rms_dbfs", min_rms_dbfs)
+    if x.size == 0:
+        return _empty("silence", limit)
+    n_bad = _non_finite(x)
+    if n_bad:
+        return _not_evaluated("silence", limit, n_bad, x.size)
+    level = float(_mean_square_db(np.mean(np.square(x, dtype=np.float64))))
+    passed = level >= limit
+    return QCResult("silence", level, limit, passed,
+                    f"Overall RMS level {level:.1f} dBFS (at least {limit:.1f} dBFS needed).")
+
+
+def check_sample_rate(sample_rate_hz: float, *, min_hz: float, max_hz: float) -> QCResult:
+    """Sample rate within [min_hz, max_hz].
+
+    value: the rate in Hz; limit: the bound it is compared with (min_hz when below it, else max_hz).
+    """
+    lo = _number("min_hz", min_hz, low=0.0, low_open=True)
+    hi = _number("max_hz", max_hz, low=lo)
+    try:
+        fs = float(sample_rate_hz)
+    except (TypeError, ValueError):
+        raise ParameterError(f"sample_rate_hz must be a number; got {sample_rate_hz!r}") from None
+    passed = lo <= fs <= hi  # False for NaN
+    limit = lo if fs < lo else hi
+    where = "within" if passed else "outside"
+    return QCResult("sample_rate", fs, limit, passed,
+                    f"Sample rate {fs:g} Hz is {where} the allowed {lo:g}–{hi:g} Hz.")
+
+
+def check_snr(x, *, sample_rate_hz: float, first_event_s: float, background_max_s: float = 0.25,
+              min_snr_db: float = 10.0, event_length_s: float | None = None, guard_s: float = 0.005,
+              min_background_s: float = 0.02, frame_s: float = 0.01) -> QCResult:
+    """Event level over background level, in dB.
+
+    background: RMS level of the quiet stretch that ends guard_s before first_event_s and starts background_max_s
+    earlier (or at the recording start); it must be at least min_background_s long.
+    event: RMS level of the loudest window of frame_s (sliding by one sample) inside
+    [first_event_s, first_event_s + event_length_s] (to the recording end when event_length_s is None).
+    value: event level - background level in dB; limit: min_snr_db; passed: value >= min_snr_db.
+    A recording without a usable quiet stretch, or whose first event lies outside it, fails with value NaN.
+    """
+    x = _signal("x", x)
+    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    bg_max = _number("background_max_s", background_max_s, low=0.0, low_open=True)
+    limit = _number("min_snr_db", min_snr_db)
+    guard = _number("guard_s", guard_s, low=0.0)
+    bg_min = _number("min_background_s", min_background_s, low=0.0, low_open=True)
+    frame = _number("frame_s", frame_s, low=0.0, low_open=True)
+    if event_length_s is not None:
+        event_length = _number("event_length_s", event_length_s, low=0.0, low_open=True)
+    try:
+        t0 = float(first_event_s)
+    except (TypeError, ValueError):
+        raise ParameterError(f"first_event_s must be a number; got {first_event_s!r}") from None
+    n = x.size
+    duration = n / fs
+    if not math.isfinite(t0) or t0 < 0 or t0 >= duration:
+        return QCResult("snr", math.nan, limit, False,
+                        f"Not evaluated: first event time {t0:g} s is not inside the recording (0–{duration:.3f} s).")
+    n_bad = _non_finite(x)
+    if n_bad:
+        return _not_evaluated("snr", limit, n_bad, n)
+
+    bg_stop = int(round((t0 - guard) * fs))
+    bg_start = max(0, int(round((t0 - guard - bg_max) * fs)))
+    bg_len = max(0, bg_stop - bg_start)
+    if bg_len < int(round(bg_min * fs)) or bg_len == 0:
+        return QCResult("snr", math.nan, limit, False,
+                        f"Not evaluated: only {_ms(bg_len / fs)} of quiet signal before the first event at "
+                        f"{t0:.3f} s (at least {_ms(bg_min)} needed, ending {_ms(guard)} before the event).")
+    background_db = float(_mean_square_db(np.mean(np.square(x[bg_start:bg_stop], dtype=np.float64))))
+
+    ev_start = min(int(t0 * fs), n - 1)
+    ev_stop = n if event_length_s is None else min(n, ev_start + max(1, int(round(event_length * fs))))
+    seg = x[ev_start:ev_stop].astype(np.float64)
+    width = max(1, min(seg.size, int(round(frame * fs))))
+    # Mean square of every window of `width` samples, from one cumulative sum.
+    csum = np.concatenate(([0.0], np.cumsum(seg * seg)))
+    event_db = float(_mean_square_db(np.max(csum[width:] - csum[:-width]) / width))
+
+    snr = event_db - background_db
+    passed = snr >= limit
+    return QCResult("snr", snr, limit, passed,
+                    f"Loudest {_ms(width / fs)} from the first event on ({event_db:.1f} dBFS) is {snr:.1f} dB "
+                    f"over the {_ms(bg_len / fs)} background before it ({background_db:.1f} dBFS); "
+                    f"at least {limit:.1f} dB needed.")
+
+
+def check_markers(found: int, expected: int, *, source: str, problem: str | None = None) -> QCResult:
+    """Number of marker edges found against the number the device profile expects.
+
+    source: where the markers came from, e.g. "marker channel 1" or "sidecar markers_s". problem: set when the
+    source is missing or unreadable (e.g. "the file has 1 channel"); the check then fails with that reason.
+    value: edges found (NaN with a problem); limit: edges expected; passed: found == expected and no problem.
+    """
+    exp = _integer("expected", expected, low=0)
+    if not isinstance(source, str) or not source:
+        raise ParameterError(f"source must be a non-empty string naming where the markers came from; got {source!r}")
+    if problem is not None:
+        return QCResult("marker", math.nan, float(exp), False, f"No markers from {source}: {problem}.")
+    got = _integer("found", found, low=0)
+    passed = got == exp
+    detail = f"{got} marker edge{'s' if got != 1 else ''} on {source} ({exp} expected)."
+    return QCResult("marker", float(got), float(exp), passed, detail)
+
+
+def run_quality_checks(x, *, sample_rate_hz: float, sample_rate_min_hz: float, sample_rate_max_hz: float,
+                       min_duration_s: float, clip_level: float = 0.999, clip_min_run: int = 3,
+                       max_clipped_fraction: float = 1e-4, max_dropout_s: float = 0.002,
+                       max_dc_offset: float = 0.01, min_rms_dbfs: float = -70.0) -> tuple[QCResult, ...]:
+    """Run the checks that need only the signal, in the fixed order
+    sample_rate, duration, clipping, dropout, dc_offset, silence.
+
+    Keyword names follow the device profile's [audio] and [quality] keys. The SNR and marker checks need event
+    times and are run by the caller.
+    """
+    x = _signal("x", x)
+    return (
+        check_sample_rate(sample_rate_hz, min_hz=sample_rate_min_hz, max_hz=sample_rate_max_hz),
+        check_duration(x.size, sample_rate_hz=sample_rate_hz, min_duration_s=min_duration_s),
+        check_clipping(x, clip_level=clip_level, min_run=clip_min_run, max_fraction=max_clipped_fraction),
+        check_dropouts(x, sample_rate_hz=sample_rate_hz, max_dropout_s=max_dropout_s),
+        check_dc_offset(x, max_dc_offset=max_dc_offset),
+        check_silence(x, min_rms_dbfs=min_rms_dbfs),
+    )

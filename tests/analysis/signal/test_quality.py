@@ -1,0 +1,267 @@
+"""Recording quality checks on constructed signals that just pass and just fail."""
+
+import math
+
+import numpy as np
+import pytest
+
+from analysis.errors import ParameterError
+from analysis.signal.quality import (
+    CHECK_NAMES,
+    LEVEL_FLOOR_DBFS,
+    QCResult,
+    check_clipping,
+    check_dc_offset,
+    check_dropouts,
+    check_duration,
+    check_markers,
+    check_sample_rate,
+    check_silence,
+    check_snr,
+    run_quality_checks,
+)
+
+FS = 48000.0
+
+
+def _noise(n, sigma, seed):
+    return np.random.default_rng(seed).normal(0.0, sigma, n)
+
+
+# ---------------------------------------------------------------- clipping
+
+def _clipped_sine(level, n=FS, f_hz=997.0):
+    t = np.arange(int(n)) / FS
+    return np.clip(level * np.sin(2 * np.pi * f_hz * t + 0.1), -1.0, 1.0)
+
+
+def test_clipped_sine_fraction_matches_the_arcsine_formula():
+    x = _clipped_sine(1.5)
+    # REFERENCES.md [C]: a sine driven to 1.5x full scale and clipped spends 1 - (2/π)·asin(1/1.5) = 0.5354 of
+    # its samples at the rails.
+    expected = 1 - (2 / math.pi) * math.asin(1 / 1.5)
+    assert expected == pytest.approx(0.5354, abs=1e-4)
+    result = check_clipping(x, clip_level=1.0)
+    assert result.check == "clipping"
+    assert result.value == pytest.approx(expected, abs=1e-3)
+    assert not result.passed
+    # With the default level 0.999 the samples between 0.999 and 1.0 count too: same formula at |x| = 0.999.
+    expected_999 = 1 - (2 / math.pi) * math.asin(0.999 / 1.5)
+    assert check_clipping(x).value == pytest.approx(expected_999, abs=1e-3)
+
+
+def test_clipping_just_passes_and_just_fails():
+    n = 60000
+    x = 0.5 * np.sin(2 * np.pi * 440.0 * np.arange(n) / FS)
+    for start in (1000, 20000):
+        x[start:start + 3] = 1.0
+    result = check_clipping(x, clip_level=0.999, min_run=3, max_fraction=1e-4)
+    assert result.value == pytest.approx(6 / n)  # two runs of 3 samples: exactly at the limit
+    assert result.passed
+    assert result.detail == "0.01% of samples in 2 runs of 3 or more samples at or above 0.999 FS (limit 0.01%)."
+
+    x[40000:40003] = -1.0
+    result = check_clipping(x, clip_level=0.999, min_run=3, max_fraction=1e-4)
+    assert result.value == pytest.approx(9 / n)
+    assert not result.passed
+
+
+def test_clipping_ignores_runs_shorter_than_min_run():
+    x = np.zeros(1000)
+    x[100:102] = 1.0  # two samples at the rail: a peak, not a clipped run
+    x[500] = -1.0
+    result = check_clipping(x, min_run=3, max_fraction=0.0)
+    assert result.value == 0.0
+    assert result.passed
+
+
+def test_clipping_counts_infinite_samples_and_survives_nan():
+    x = np.zeros(100)
+    x[10:15] = np.inf
+    x[50:60] = np.nan
+    result = check_clipping(x, min_run=3)
+    assert result.value == pytest.approx(5 / 100)
+    assert not result.passed
+
+
+# ---------------------------------------------------------------- dropout
+
+def test_ten_ms_of_zeros_in_noise_is_a_dropout():
+    x = _noise(int(FS), 0.01, seed=1)
+    x[20000:20480] = 0.0  # 480 samples = 10 ms at 48 kHz
+    result = check_dropouts(x, sample_rate_hz=FS, max_dropout_s=0.002)
+    assert result.check == "dropout"
+    assert result.value == pytest.approx(0.010)
+    assert not result.passed
+    assert "10.0 ms" in result.detail and "1 run longer" in result.detail
+
+
+def test_dropout_at_the_limit_passes_and_one_sample_more_fails():
+    x = _noise(int(FS), 0.01, seed=2)
+    x[1000:1096] = 0.0  # 96 samples = 2.0 ms
+    assert check_dropouts(x, sample_rate_hz=FS, max_dropout_s=0.002).passed
+    x[1096] = 0.0
+    result = check_dropouts(x, sample_rate_hz=FS, max_dropout_s=0.002)
+    assert result.value == pytest.approx(97 / FS)
+    assert not result.passed
+
+
+# ---------------------------------------------------------------- DC offset
+
+def test_dc_offset_just_passes_and_just_fails():
+    square = np.tile([0.1, -0.1], 5000)  # mean exactly 0
+    ok = check_dc_offset(square + 0.0099, max_dc_offset=0.01)
+    assert ok.value == pytest.approx(0.0099, rel=1e-9)
+    assert ok.passed
+    bad = check_dc_offset(square - 0.0101, max_dc_offset=0.01)
+    assert bad.value == pytest.approx(0.0101, rel=1e-9)
+    assert not bad.passed
+
+
+# ---------------------------------------------------------------- silence
+
+def test_silence_level_of_a_sine_and_the_limit():
+    t = np.arange(int(FS)) / FS
+    # A sine of amplitude A has RMS A/√2 (textbook): a full-scale sine reads 20·log10(1/√2) = -3.0103 dB re FS.
+    full = check_silence(np.sin(2 * np.pi * 1000.0 * t))
+    assert full.value == pytest.approx(-3.0103, abs=1e-3)
+    assert full.passed
+    amp_pass = math.sqrt(2) * 10 ** (-69.9 / 20)
+    amp_fail = math.sqrt(2) * 10 ** (-70.1 / 20)
+    quiet = check_silence(amp_pass * np.sin(2 * np.pi * 1000.0 * t), min_rms_dbfs=-70.0)
+    assert quiet.value == pytest.approx(-69.9, abs=1e-3) and quiet.passed
+    silent = check_silence(amp_fail * np.sin(2 * np.pi * 1000.0 * t), min_rms_dbfs=-70.0)
+    assert silent.value == pytest.approx(-70.1, abs=1e-3) and not silent.passed
+
+
+def test_all_zero_signal_reads_the_finite_floor_and_fails():
+    result = check_silence(np.zeros(4800))
+    assert result.value == LEVEL_FLOOR_DBFS
+    assert math.isfinite(result.value)
+    assert not result.passed
+
+
+# ---------------------------------------------------------------- duration, sample rate, markers
+
+def test_duration_just_passes_and_just_fails():
+    assert check_duration(38400, sample_rate_hz=FS, min_duration_s=0.8).passed  # 0.8 s exactly
+    short = check_duration(38399, sample_rate_hz=FS, min_duration_s=0.8)
+    assert not short.passed
+    assert short.value == pytest.approx(38399 / FS)
+    assert "0.800 s" in short.detail
+
+
+def test_sample_rate_bounds():
+    assert check_sample_rate(44100, min_hz=44100, max_hz=96000).passed
+    low = check_sample_rate(32000, min_hz=44100, max_hz=96000)
+    assert not low.passed and low.limit == 44100
+    high = check_sample_rate(192000, min_hz=44100, max_hz=96000)
+    assert not high.passed and high.limit == 96000
+    assert "outside the allowed 44100–96000 Hz" in high.detail
+
+
+def test_markers_count_and_missing_source():
+    assert check_markers(2, 2, source="marker channel 1").passed
+    wrong = check_markers(1, 2, source="marker channel 1")
+    assert not wrong.passed
+    assert wrong.detail == "1 marker edge on marker channel 1 (2 expected)."
+    gone = check_markers(0, 2, source="marker channel 1", problem="the file has 1 channel")
+    assert not gone.passed and math.isnan(gone.value)
+    assert "the file has 1 channel" in gone.detail
+
+
+# ---------------------------------------------------------------- SNR
+
+def _tone_burst_in_noise(burst_rms, noise_rms, start_s, seed, length_s=0.02, n=int(FS)):
+    x = _noise(n, noise_rms, seed)
+    i0, i1 = int(start_s * FS), int((start_s + length_s) * FS)
+    t = np.arange(i1 - i0) / FS
+    x[i0:i1] += math.sqrt(2) * burst_rms * np.sin(2 * np.pi * 2000.0 * t)
+    return x
+
+
+def test_snr_of_a_burst_twenty_db_over_the_noise():
+    # By construction: burst RMS 0.01 over noise RMS 0.001 is 20 dB; with the noise under the burst the level
+    # difference is 10·log10((0.01² + 0.001²)/0.001²) = 20.04 dB (uncorrelated powers add).
+    x = _tone_burst_in_noise(0.01, 0.001, start_s=0.5, seed=3)
+    result = check_snr(x, sample_rate_hz=FS, first_event_s=0.5, min_snr_db=10.0)
+    assert result.check == "snr"
+    assert result.value == pytest.approx(10 * math.log10(101), abs=1.5)
+    assert result.passed
+    # A burst of RMS 0.002 reads 10·log10((0.002² + 0.001²)/0.001²) = 6.99 dB and fails a 10 dB limit.
+    weak = check_snr(_tone_burst_in_noise(0.002, 0.001, start_s=0.5, seed=4), sample_rate_hz=FS,
+                     first_event_s=0.5, min_snr_db=10.0)
+    assert weak.value == pytest.approx(10 * math.log10(5), abs=1.5)
+    assert not weak.passed
+
+
+def test_snr_with_too_short_a_background_fails_clearly():
+    x = _tone_burst_in_noise(0.01, 0.001, start_s=0.01, seed=5)
+    result = check_snr(x, sample_rate_hz=FS, first_event_s=0.01)
+    assert not result.passed
+    assert math.isnan(result.value)
+    assert result.detail.startswith("Not evaluated: only 5.0 ms of quiet signal before the first event at 0.010 s")
+
+
+def test_snr_with_the_event_on_the_last_sample_does_not_crash():
+    x = _noise(48000, 0.001, seed=9)
+    result = check_snr(x, sample_rate_hz=FS, first_event_s=47999.6 / FS)
+    assert math.isfinite(result.value)
+    short = check_snr(x, sample_rate_hz=FS, first_event_s=0.5, event_length_s=1e-9)
+    assert math.isfinite(short.value)
+
+
+def test_snr_with_an_event_outside_the_recording_fails():
+    x = _noise(4800, 0.001, seed=6)
+    for t0 in (2.0, float("nan"), -0.1):
+        result = check_snr(x, sample_rate_hz=FS, first_event_s=t0)
+        assert not result.passed and "not inside the recording" in result.detail
+
+
+# ---------------------------------------------------------------- non-finite input, order, parameters
+
+def test_non_finite_input_does_not_crash_and_fails_level_checks():
+    x = _noise(48000, 0.01, seed=7)
+    x[100] = np.nan
+    x[200] = np.inf
+    for result in (check_dc_offset(x), check_silence(x),
+                   check_snr(x, sample_rate_hz=FS, first_event_s=0.5)):
+        assert not result.passed
+        assert math.isnan(result.value)
+        assert "2 of 48000 samples are not finite" in result.detail
+    all_nan = np.full(48000, np.nan)
+    results = run_quality_checks(all_nan, sample_rate_hz=FS, sample_rate_min_hz=44100, sample_rate_max_hz=96000,
+                                 min_duration_s=0.8)
+    assert all(isinstance(r, QCResult) for r in results)
+
+
+def test_run_quality_checks_fixed_order_and_profile_keywords():
+    x = _noise(int(FS), 0.01, seed=8)
+    results = run_quality_checks(x, sample_rate_hz=FS, sample_rate_min_hz=44100, sample_rate_max_hz=96000,
+                                 min_duration_s=0.8, clip_level=0.999, clip_min_run=3, max_clipped_fraction=1e-4,
+                                 max_dropout_s=0.002, max_dc_offset=0.01, min_rms_dbfs=-70.0)
+    assert [r.check for r in results] == ["sample_rate", "duration", "clipping", "dropout", "dc_offset", "silence"]
+    assert all(r.passed is True for r in results)
+    assert all(type(r.value) is float and type(r.limit) is float for r in results)
+    assert set(r.check for r in results) <= set(CHECK_NAMES)
+
+
+def test_empty_signal_fails_without_crashing():
+    for result in (check_clipping(np.zeros(0)), check_dropouts(np.zeros(0), sample_rate_hz=FS),
+                   check_dc_offset(np.zeros(0)), check_silence(np.zeros(0))):
+        assert not result.passed and "no samples" in result.detail
+
+
+def test_parameter_errors_name_the_parameter_and_value():
+    with pytest.raises(ParameterError, match=r"clip_level must be a finite number > 0; got 0"):
+        check_clipping(np.zeros(10), clip_level=0)
+    with pytest.raises(ParameterError, match=r"min_run must be an integer >= 1; got 0"):
+        check_clipping(np.zeros(10), min_run=0)
+    with pytest.raises(ParameterError, match=r"max_fraction must be a finite number >= 0 and <= 1; got 2"):
+        check_clipping(np.zeros(10), max_fraction=2)
+    with pytest.raises(ParameterError, match=r"sample_rate_hz must be a finite number > 0; got -1"):
+        check_dropouts(np.zeros(10), sample_rate_hz=-1)
+    with pytest.raises(ParameterError, match=r"x must be a 1-D array of samples; got an array of shape \(2, 5\)"):
+        check_silence(np.zeros((2, 5)))
+    with pytest.raises(ParameterError, match=r"max_hz must be a finite number >= 44100; got 100"):
+        check_sample_rate(48000, min_hz=44100, max_hz=100)
