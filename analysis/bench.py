@@ -1,0 +1,189 @@
+"""`harken bench ...`: speed measured as ratios against a floor (or a peer) timed in the same run.
+
+Seconds on these machines are noisy; a ratio of two things timed side by side, interleaved, is not. Each bench
+prints its details first and its ratios last, one per line, as ``name=<value>``.
+"""
+
+from __future__ import annotations
+
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import scipy.signal
+
+__all__ = ["run", "bench_analyse", "bench_score"]
+
+
+def run(args) -> int:
+    if args.bench_command == "analyse":
+        bench_analyse(n_files=args.files, repeat=args.repeat)
+        return 0
+    if args.bench_command == "score":
+        bench_score(n_actuations=args.actuations, n_slices=args.slices, n_bands=args.bands, repeat=args.repeat)
+        return 0
+    raise SystemExit(f"unknown bench {args.bench_command!r}")
+
+
+def _best(fn, repeat: int) -> float:
+    best = float("inf")
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn()
+        best = min(best, time.perf_counter() - t0)
+    return best
+
+
+# --------------------------------------------------------------------------------------------------- analyse
+
+
+def _floor_one(path: Path, frames_plan) -> None:
+    """Decode + the bare numpy FFTs of the frames the analysis needs (the onset search and every event's slices)."""
+    from .io import read_audio
+
+    audio = read_audio(path)
+    x = audio.samples[:, 0].astype(np.float64)
+    for n_window, starts in frames_plan:
+        idx = starts[:, None] + np.arange(n_window)[None, :]
+        idx = np.clip(idx, 0, x.size - 1)
+        np.fft.rfft(x[idx] * np.hanning(n_window), axis=1)
+
+
+def _peer_one(path: Path, event_plans) -> None:
+    """A plain approach: scipy.signal.spectrogram of the whole file per event grid, then numpy band averaging."""
+    from .io import read_audio
+
+    audio = read_audio(path)
+    x = audio.samples[:, 0].astype(np.float64)
+    fs = audio.sample_rate_hz
+    for n_window, n_hop, lower, upper in event_plans:
+        f, _, sxx = scipy.signal.spectrogram(
+            x, fs=fs, window="hann", nperseg=n_window, noverlap=n_window - n_hop, scaling="spectrum", mode="psd"
+        )
+        levels = np.empty((len(lower), sxx.shape[1]))
+        for b, (lo, hi) in enumerate(zip(lower, upper)):
+            mask = (f >= lo) & (f < hi)
+            levels[b] = sxx[mask].sum(axis=0) if mask.any() else 0.0
+        10.0 * np.log10(levels + 1e-20)
+
+
+def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
+    """Analyse a generated batch; print time per recording and the ratios to the floor and to the peer."""
+    from .demo import generate
+    from .pipeline import analyse_file, band_layout
+    from .profiles import load_profile
+
+    with tempfile.TemporaryDirectory(prefix="harken-bench-") as tmp:
+        generate(tmp, scenario="small", seed=1234)
+        files = sorted(Path(tmp).rglob("*.flac"))[:n_files]
+        if not files:
+            raise SystemExit("bench analyse: the generator wrote no recordings")
+        profile = load_profile("demo-dpi")
+
+        # One analysis pass first: it gives the frame plans of the floor and the peer (same frames, same grids).
+        plans, peer_plans = [], []
+        for path in files:
+            res = analyse_file(path, profile=profile)
+            fs = res.sample_rate_hz
+            n_flux = int(round(0.005 * fs))
+            n_hop = int(round(0.001 * fs))
+            total = int(round(res.duration_s * fs))
+            plan = [(n_flux, np.arange(0, max(total - n_flux, 0) + 1, n_hop))]
+            pplan = []
+            for spec in profile.events:
+                n_win = int(round(spec.slice_window_s * fs))
+                hop = int(round(spec.slice_hop_s * fs))
+                layout = band_layout(spec.bands)
+                pplan.append((n_win, hop, layout.lower_hz, layout.upper_hz))
+                ev = res.event(spec.name)
+                if ev.found:
+                    start = int(round(ev.onset_s * fs))
+                    plan.append((n_win, start + hop * np.arange(spec.n_slices)))
+            plans.append(plan)
+            peer_plans.append(pplan)
+
+        def ours():
+            for path in files:
+                analyse_file(path, profile=profile)
+
+        def floor():
+            for path, plan in zip(files, plans):
+                _floor_one(path, plan)
+
+        def peer():
+            for path, pplan in zip(files, peer_plans):
+                _peer_one(path, pplan)
+
+        t_ours = t_floor = t_peer = float("inf")
+        for _ in range(max(1, repeat)):  # interleaved, best of each: load spikes hit all three alike
+            t_ours = min(t_ours, _best(ours, 1))
+            t_floor = min(t_floor, _best(floor, 1))
+            t_peer = min(t_peer, _best(peer, 1))
+
+    n = len(files)
+    result = {
+        "files": n,
+        "ms_per_recording": 1e3 * t_ours / n,
+        "floor_ms_per_recording": 1e3 * t_floor / n,
+        "peer_ms_per_recording": 1e3 * t_peer / n,
+        "ratio_to_floor": t_ours / t_floor,
+        "speedup_vs_peer": t_peer / t_ours,
+    }
+    out(f"recordings analysed: {n} (demo scenario 'small', best of {repeat})")
+    out(f"analysis: {result['ms_per_recording']:.2f} ms per recording "
+        "(decode, quality checks, events, spectra, band features)")
+    out(f"floor:    {result['floor_ms_per_recording']:.2f} ms per recording (decode + bare numpy FFTs of the same frames)")
+    out(f"peer:     {result['peer_ms_per_recording']:.2f} ms per recording "
+        "(decode + scipy.signal.spectrogram of the whole file per event grid + numpy band averaging)")
+    out(f"ratio_to_floor={result['ratio_to_floor']:.3f}")
+    out(f"speedup_vs_peer={result['speedup_vs_peer']:.3f}")
+    return result
+
+
+# --------------------------------------------------------------------------------------------------- score
+
+
+def bench_score(*, n_actuations: int = 10_000, n_slices: int = 40, n_bands: int = 30, repeat: int = 5,
+                out=print) -> dict:
+    """Score n_actuations x n_slices x n_bands against a fitted model vs the bare matrix products of that size."""
+    from .monitor import ReferenceModel
+
+    rng = np.random.default_rng(7)
+    n_ref = 200
+    latent = rng.standard_normal((n_ref, n_slices, 4))
+    mixing = rng.standard_normal((4, n_bands))
+    ref = latent @ mixing + 0.3 * rng.standard_normal((n_ref, n_slices, n_bands))
+    model = ReferenceModel(n_components=4).fit(ref)
+    new = rng.standard_normal((n_actuations, n_slices, 4)) @ mixing + 0.3 * rng.standard_normal(
+        (n_actuations, n_slices, n_bands)
+    )
+    a = model.n_components_
+    p = np.asarray(model.loadings_)
+    flat = new.reshape(-1, n_bands)
+
+    def floor():
+        z = (flat - model.mean_) / model.scale_
+        t = z @ p
+        e = z - t @ p.T
+        (t * t / model.eigenvalues_).sum(axis=1)
+        (e * e).sum(axis=1)
+
+    def ours():
+        model.score(new)
+
+    t_ours = t_floor = float("inf")
+    for _ in range(max(1, repeat)):
+        t_ours = min(t_ours, _best(ours, 1))
+        t_floor = min(t_floor, _best(floor, 1))
+    result = {
+        "rows": flat.shape[0],
+        "score_s": t_ours,
+        "floor_s": t_floor,
+        "ratio_to_floor": t_ours / t_floor,
+    }
+    out(f"scored {n_actuations} actuations x {n_slices} slices x {n_bands} bands, {a} components (best of {repeat})")
+    out(f"score:  {t_ours * 1e3:.1f} ms (T², SPE, envelope, trajectory distance, actuation decision)")
+    out(f"floor:  {t_floor * 1e3:.1f} ms (scaling + the bare matrix products for scores, residuals, T², SPE)")
+    out(f"ratio_to_floor={result['ratio_to_floor']:.3f}")
+    return result
