@@ -1,0 +1,60 @@
+"""Pure monitoring statistics: reference model, limits, contributions, charts, run rules, PLS/OPLS.
+
+Arrays in, small frozen dataclasses out. Nothing here reads or writes files except
+ReferenceModel.save/load (paths given by the caller); nothing imports the store or the dashboard.
+"""
+
+from analysis.monitor.charts import (
+    CusumChart,
+    CusumLimits,
+    EwmaChart,
+    EwmaLimits,
+    IndividualsChart,
+    IndividualsLimits,
+    XbarSChart,
+    XbarSLimits,
+    cusum_chart,
+    ewma_chart,
+    fit_cusum_limits,
+    fit_ewma_limits,
+    fit_individuals_limits,
+    fit_xbar_s_limits,
+    individuals_chart,
+    xbar_s_chart,
+)
+from analysis.monitor.contributions import Contributions, band_contributions
+from analysis.monitor.limits import (
+    ControlConstants,
+    control_constants,
+    spe_limit_box,
+    spe_limit_jackson_mudholkar,
+    t2_limit_new,
+    t2_limit_reference,
+)
+from analysis.monitor.model import (
+    FORMAT_NAME,
+    FORMAT_VERSION,
+    CrossValidationCurve,
+    MonitoringResult,
+    ReferenceModel,
+)
+from analysis.monitor.pls import OPLS, PLS1, CrossValidationResult, cross_validate
+from analysis.monitor.rules import NELSON, RULES, WESTERN_ELECTRIC, RuleViolation, check_rules
+
+__all__ = [
+    # limits
+    "t2_limit_new", "t2_limit_reference", "spe_limit_jackson_mudholkar", "spe_limit_box",
+    "ControlConstants", "control_constants",
+    # reference model
+    "ReferenceModel", "MonitoringResult", "CrossValidationCurve", "FORMAT_NAME", "FORMAT_VERSION",
+    "Contributions", "band_contributions",
+    # charts
+    "IndividualsLimits", "IndividualsChart", "fit_individuals_limits", "individuals_chart",
+    "XbarSLimits", "XbarSChart", "fit_xbar_s_limits", "xbar_s_chart",
+    "EwmaLimits", "EwmaChart", "fit_ewma_limits", "ewma_chart",
+    "CusumLimits", "CusumChart", "fit_cusum_limits", "cusum_chart",
+    # run rules
+    "RuleViolation", "RULES", "WESTERN_ELECTRIC", "NELSON", "check_rules",
+    # regression
+    "PLS1", "OPLS", "CrossValidationResult", "cross_validate",
+]
