@@ -35,9 +35,11 @@ Reference envelope
 Actuation-level decision
     An actuation has many slices, so per-slice limits at α flag far more than α of actuations. Four
     actuation statistics are used: max T²/t2 limit, max SPE/spe limit, the trajectory distance (mean over
-    slices and components of ((t - centre)/spread)²), and the mean over slices of SPE/spe limit. The maxima
-    catch a short, strong departure; the two means a small one that lasts the whole event (a few dB in some
-    bands), which the maxima of noisy slices hide. Their distribution for new in-control actuations is
+    slices and components of ((t - centre)/spread)²), and the event residual: the squared norm of the residual
+    averaged over the event's slices, over its median in the reference. The maxima catch a short, strong
+    departure; the event residual a small one that lasts the whole event (a dB or two in some bands): averaging
+    the residual over n slices cuts the slice-to-slice noise by about n while a lasting shift stays whole, so
+    it shows where the noisy per-slice maxima hide it. Their distribution for new in-control actuations is
     learned from reference actuations held out of the fit (same folds as above: leave-one-lot-out with >= 3
     lots, else K-fold by actuation), each fold model with its own limits and envelope. Each statistic's tail is
     fitted to its held-out values: the empirical distribution up to the 80th percentile and an exponential tail
@@ -119,9 +121,9 @@ class MonitoringResult:
     trajectory_flag: np.ndarray
     flagged: np.ndarray
     slice_times_s: np.ndarray | None
-    spe_mean_ratio: np.ndarray | None = None
-    spe_mean_threshold: float = math.inf
-    spe_mean_flag: np.ndarray | None = None
+    event_spe_ratio: np.ndarray | None = None
+    event_spe_threshold: float = math.inf
+    event_spe_flag: np.ndarray | None = None
 
     def reasons(self, i):
         """Plain-language reasons why actuation i is flagged (empty list when it is not)."""
@@ -142,10 +144,11 @@ class MonitoringResult:
                 f"{n_slices} slices (distance {self.trajectory_distance[i]:.1f}, threshold "
                 f"{self.distance_threshold:.1f})"
             )
-        if self.spe_mean_flag is not None and self.spe_mean_flag[i]:
+        if self.event_spe_flag is not None and self.event_spe_flag[i]:
             out.append(
-                f"SPE averaged over the event {self.spe_mean_ratio[i]:.2f}× its limit (threshold "
-                f"{self.spe_mean_threshold:.2f}): a small departure that lasts the whole event"
+                f"the event's mean spectrum departs from the model: residual {self.event_spe_ratio[i]:.1f}× its "
+                f"reference median (threshold {self.event_spe_threshold:.1f}), a small change that lasts the "
+                "whole event"
             )
         return out
 
@@ -181,7 +184,9 @@ def _pca(z):
 
 
 def _project(x3, mean, scale, loadings, eigenvalues):
-    """Scores (n, s, A), T² (n, s) and SPE (n, s): one matmul for scores, one for the reconstruction."""
+    """Scores (n, s, A), T² (n, s), SPE (n, s) and the squared norm of the slice-mean residual (n,).
+
+    One matmul for the scores, one for the reconstruction."""
     n, s, b = x3.shape
     if np.ndim(mean) == 1:
         z = x3.reshape(n * s, b) - mean
@@ -192,7 +197,8 @@ def _project(x3, mean, scale, loadings, eigenvalues):
     t2 = np.einsum("ij,ij->i", t, t / eigenvalues)
     z -= t @ loadings.T
     spe = np.einsum("ij,ij->i", z, z)
-    return t.reshape(n, s, -1), t2.reshape(n, s), spe.reshape(n, s)
+    e_mean = z.reshape(n, s, b).mean(axis=1)
+    return t.reshape(n, s, -1), t2.reshape(n, s), spe.reshape(n, s), np.einsum("ij,ij->i", e_mean, e_mean)
 
 
 def _envelope(scores):
@@ -202,11 +208,15 @@ def _envelope(scores):
     return centre, np.maximum(spread, floor)
 
 
-def _actuation_stats(scores, t2, spe, t2_limit, spe_limit, centre, spread):
-    """(max T² ratio, max SPE ratio, trajectory distance, mean SPE ratio), each (n_act,)."""
+def _actuation_stats(scores, t2, spe, event_spe, t2_limit, spe_limit, event_spe_ref, centre, spread):
+    """(max T² ratio, max SPE ratio, trajectory distance, event residual ratio), each (n_act,)."""
     d = (scores - centre) / spread
     return (t2.max(axis=1) / t2_limit, spe.max(axis=1) / spe_limit, np.mean(d**2, axis=(1, 2)),
-            spe.mean(axis=1) / spe_limit)
+            event_spe / event_spe_ref)
+
+
+def _median_ref(values):
+    return max(float(np.median(values)), 1e-300)
 
 
 class _ExponentialTail:
@@ -416,7 +426,8 @@ class ReferenceModel:
         self.cv_ = CrossValidationCurve(np.arange(a_cap + 1), press, chosen, fold_kind, len(folds))
         self.t2_limit_ = t2_limit_new(n_rows, a, self.alpha)
         self.spe_limit_ = spe_limit_jackson_mudholkar(self.residual_eigenvalues_, self.alpha)
-        scores, t2, spe = _project(x, mean, scale, self.loadings_, self.eigenvalues_)
+        scores, t2, spe, event_spe = _project(x, mean, scale, self.loadings_, self.eigenvalues_)
+        self.event_spe_reference_ = _median_ref(event_spe)
         self.spe_limit_box_ = spe_limit_box(spe_mean=float(spe.mean()), spe_var=float(spe.var(ddof=1)),
                                             alpha=self.alpha)
         self.envelope_centre_, self.envelope_spread_ = _envelope(scores)
@@ -425,17 +436,18 @@ class ReferenceModel:
         held = np.zeros((4, n_act))
         for train, test, f_mean, f_scale, f_lam, f_v in fold_fits:
             p_f, lam_f = f_v[:, :a], f_lam[:a]
-            sc_tr, _, _ = _project(x[train], f_mean, f_scale, p_f, lam_f)
+            sc_tr, _, _, ev_tr = _project(x[train], f_mean, f_scale, p_f, lam_f)
             centre, spread = _envelope(sc_tr)
             t2_lim = t2_limit_new(train.size * n_slices, a, self.alpha)
             spe_lim = spe_limit_jackson_mudholkar(f_lam[a:], self.alpha)
-            sc, t2_h, spe_h = _project(x[test], f_mean, f_scale, p_f, lam_f)
-            held[:, test] = _actuation_stats(sc, t2_h, spe_h, t2_lim, spe_lim, centre, spread)
+            sc, t2_h, spe_h, ev_h = _project(x[test], f_mean, f_scale, p_f, lam_f)
+            held[:, test] = _actuation_stats(sc, t2_h, spe_h, ev_h, t2_lim, spe_lim, _median_ref(ev_tr), centre,
+                                             spread)
         (self.calibration_t2_ratio_, self.calibration_spe_ratio_, self.calibration_distance_,
-         self.calibration_spe_mean_ratio_) = held.copy()
+         self.calibration_event_spe_ratio_) = held.copy()
         thresholds, self.actuation_alpha_each_ = _calibrate(held, self.actuation_alpha)
         (self.t2_ratio_threshold_, self.spe_ratio_threshold_, self.distance_threshold_,
-         self.spe_mean_threshold_) = thresholds
+         self.event_spe_threshold_) = thresholds
         return self
 
     def _folds(self, n_act, lots):
@@ -459,13 +471,14 @@ class ReferenceModel:
         self._check_fitted()
         x = _check_x(X)
         self._check_shape(x)
-        scores, t2, spe = _project(x, self.mean_, self.scale_, self.loadings_, self.eigenvalues_)
+        scores, t2, spe, event_spe = _project(x, self.mean_, self.scale_, self.loadings_, self.eigenvalues_)
         dev = np.abs(scores - self.envelope_centre_) > self.envelope_k * self.envelope_spread_
         outside = dev.any(axis=2)
-        t2_ratio, spe_ratio, dist, spe_mean_ratio = _actuation_stats(
-            scores, t2, spe, self.t2_limit_, self.spe_limit_, self.envelope_centre_, self.envelope_spread_
+        t2_ratio, spe_ratio, dist, event_spe_ratio = _actuation_stats(
+            scores, t2, spe, event_spe, self.t2_limit_, self.spe_limit_, self.event_spe_reference_,
+            self.envelope_centre_, self.envelope_spread_,
         )
-        spe_mean_flag = spe_mean_ratio > self.spe_mean_threshold_
+        event_spe_flag = event_spe_ratio > self.event_spe_threshold_
         t2_flag = t2_ratio > self.t2_ratio_threshold_
         spe_flag = spe_ratio > self.spe_ratio_threshold_
         traj_flag = dist > self.distance_threshold_
@@ -490,11 +503,11 @@ class ReferenceModel:
             t2_flag=t2_flag,
             spe_flag=spe_flag,
             trajectory_flag=traj_flag,
-            flagged=t2_flag | spe_flag | traj_flag | spe_mean_flag,
+            flagged=t2_flag | spe_flag | traj_flag | event_spe_flag,
             slice_times_s=self.slice_times_s_,
-            spe_mean_ratio=spe_mean_ratio,
-            spe_mean_threshold=self.spe_mean_threshold_,
-            spe_mean_flag=spe_mean_flag,
+            event_spe_ratio=event_spe_ratio,
+            event_spe_threshold=self.event_spe_threshold_,
+            event_spe_flag=event_spe_flag,
         )
 
     def contributions(self, x_slice, *, slice_index=None):
@@ -531,10 +544,10 @@ class ReferenceModel:
     # ------------------------------------------------------------------ persistence
     _ARRAYS = ("mean_", "scale_", "loadings_", "eigenvalues_", "residual_eigenvalues_", "explained_variance_ratio_",
                "envelope_centre_", "envelope_spread_", "calibration_t2_ratio_", "calibration_spe_ratio_",
-               "calibration_distance_", "calibration_spe_mean_ratio_", "slice_times_s_", "band_centres_hz_")
+               "calibration_distance_", "calibration_event_spe_ratio_", "slice_times_s_", "band_centres_hz_")
     _SCALARS = ("n_components_", "n_reference_", "n_actuations_", "n_slices_", "n_bands_", "t2_limit_",
                 "spe_limit_", "spe_limit_box_", "t2_ratio_threshold_", "spe_ratio_threshold_",
-                "distance_threshold_", "spe_mean_threshold_", "actuation_alpha_each_")
+                "distance_threshold_", "event_spe_threshold_", "event_spe_reference_", "actuation_alpha_each_")
 
     def save(self, path, *, metadata=None):
         """Write the model as two files: path with its suffix replaced by .json (parameters, scalars, limits,

@@ -75,7 +75,7 @@ def test_slice_centring_is_pca_of_deviations_from_the_mean_trajectory():
         m.contributions(x[0, 5])
 
 
-def test_mean_spe_catches_a_small_shift_that_lasts_the_whole_event():
+def test_event_residual_catches_a_small_shift_that_lasts_the_whole_event():
     # A 4 dB rise in a quarter of the bands over every slice: per slice it hides in the noise of the maxima,
     # averaged over the event's slices it does not.
     x, lots = simulate(np.random.default_rng(21), 8, 25)
@@ -88,8 +88,8 @@ def test_mean_spe_catches_a_small_shift_that_lasts_the_whole_event():
     r = model.score(shifted)
     assert r.flagged.mean() > 0.9
     assert (r.t2_flag | r.spe_flag).mean() < 0.5  # the maxima alone miss most of them
-    assert r.spe_mean_flag.mean() > 0.9
-    assert any("SPE averaged over the event" in reason for reason in r.reasons(0))
+    assert r.event_spe_flag.mean() > 0.9
+    assert any("mean spectrum departs from the model" in reason for reason in r.reasons(0))
 
 
 def test_reference_t2_sums_to_a_times_n_minus_1(reference):
