@@ -161,9 +161,11 @@ def bench_score(*, n_actuations: int = 10_000, n_slices: int = 40, n_bands: int 
     a = model.n_components_
     p = np.asarray(model.loadings_)
     flat = new.reshape(-1, n_bands)
+    mean = np.broadcast_to(model.mean_, (n_actuations, n_slices, n_bands)).reshape(-1, n_bands)
+    scale = np.broadcast_to(model.scale_, (n_actuations, n_slices, n_bands)).reshape(-1, n_bands)
 
     def floor():
-        z = (flat - model.mean_) / model.scale_
+        z = (flat - mean) / scale
         t = z @ p
         e = z - t @ p.T
         (t * t / model.eigenvalues_).sum(axis=1)

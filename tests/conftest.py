@@ -82,3 +82,13 @@ def write_recording(
 def recording(tmp_path) -> Path:
     """A two-channel FLAC (mic + marker pulses) with a valid sidecar."""
     return write_recording(tmp_path)
+
+
+@pytest.fixture(scope="session")
+def small_scenario(tmp_path_factory) -> Path:
+    """The demo generator's 'small' scenario, generated once per test session (an inbox-style tree)."""
+    from analysis.demo import generate
+
+    out = tmp_path_factory.mktemp("small-scenario")
+    generate(out, scenario="small")
+    return out

@@ -1,0 +1,182 @@
+"""`harken demo`: generate the demo scenario, fit the reference models, analyse and score every recording.
+
+Until the store and dashboard land this is the main job on the embedded default: it prints what the monitoring
+found per condition, rig and lot, and compares it with the generator's ground truth.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .errors import AnalysisError
+
+__all__ = ["run", "run_demo"]
+
+
+def run(args) -> int:
+    run_demo(args.out, scenario=args.scenario, seed=args.seed, jobs=args.jobs)
+    return 0
+
+
+def _generated_already(inbox: Path, key: dict) -> bool:
+    stamp = inbox / ".harken-demo.json"
+    return stamp.exists() and (inbox / "ground_truth.csv").exists() and json.loads(stamp.read_text()) == key
+
+
+def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: int | None = None, echo=print):
+    """Run the whole demo into the folder ``out``; returns the per-recording results table."""
+    from .demo import generate
+    from .profiles import load_profile
+    from .scoring import analyse_many, feature_set, fit_event_model, monitor_result
+
+    out = Path(out)
+    inbox = out / "inbox"
+    key = {"scenario": scenario, "seed": seed}
+    t0 = time.perf_counter()
+    if _generated_already(inbox, key):
+        echo(f"using the recordings already generated in {inbox}")
+    else:
+        if inbox.exists() and any(inbox.iterdir()):
+            if not (inbox / "ground_truth.csv").exists():
+                raise AnalysisError(f"{inbox}: exists and was not made by the demo; choose another --out")
+            shutil.rmtree(inbox)  # an earlier demo of another scenario or seed: make it anew
+        echo(f"generating the {scenario!r} demo scenario into {inbox} ...")
+        summary = generate(inbox, scenario=scenario, seed=seed, jobs=jobs)
+        (inbox / ".harken-demo.json").write_text(json.dumps(key))
+        echo(f"  {summary} ({time.perf_counter() - t0:.1f} s)")
+
+    truth = pd.read_csv(inbox / "ground_truth.csv")
+    profiles = sorted(set(json.loads((inbox / Path(f).with_suffix(".json")).read_text())["profile"]
+                          for f in truth["file"].head(20)))
+    if len(profiles) != 1:
+        raise AnalysisError(f"{inbox}: the demo expects one device profile, found {profiles}")
+    profile = load_profile(profiles[0])
+
+    t1 = time.perf_counter()
+    files = [inbox / f for f in truth["file"]]
+    results = analyse_many(files, profile=profile, jobs=jobs)
+    echo(f"analysed {len(files)} recordings in {time.perf_counter() - t1:.1f} s")
+
+    ref_mask = truth["reference"].astype(str).str.lower().isin(["true", "1"]).to_numpy()
+    ref_results = [r for r, m in zip(results, ref_mask) if m]
+    models = {}
+    model_dir = out / "models"
+    model_dir.mkdir(parents=True, exist_ok=True)
+    for event in profile.event_names:
+        fs = feature_set(ref_results, event)
+        model, meta = fit_event_model(fs, profile=profile)
+        model.save(model_dir / event, metadata=meta)
+        models[event] = model
+        lots = ", ".join(sorted(set(fs.lots)))
+        echo(f"reference model {event}: {model.n_components_} components from {len(fs.paths)} actuations of "
+             f"lots {lots} ({len(fs.excluded)} left out) -> {model_dir / event}.json")
+
+    rows = []
+    for (path, res, err), truth_row in zip(results, truth.itertuples(index=False)):
+        row = {
+            "file": truth_row.file, "site": truth_row.site, "rig": truth_row.rig, "lot": truth_row.lot,
+            "unit": truth_row.unit, "actuation": truth_row.actuation, "condition": truth_row.condition,
+            "reference": bool(str(truth_row.reference).lower() in ("true", "1")),
+            "recorded_at": truth_row.recorded_at,
+        }
+        if res is None:
+            row.update(analysed=False, qc_failed="", flagged=True, reasons=err)
+        else:
+            mon = monitor_result(res, models)
+            reasons = []
+            for event, m in mon.items():
+                reasons += [f"{event}: {r}" for r in m["reasons"]]
+                for k in ("t2_ratio", "spe_ratio", "trajectory_distance", "event_spe_ratio"):
+                    row[f"{event}.{k}"] = m.get(k)
+            row.update(analysed=True, qc_failed=",".join(res.failed_checks),
+                       flagged=any(m["flagged"] for m in mon.values()), reasons=" | ".join(dict.fromkeys(reasons)))
+        rows.append(row)
+    table = pd.DataFrame(rows)
+    table.to_csv(out / "results.csv", index=False)
+
+    echo("")
+    echo("detection by condition (ground truth from the generator; reference lots excluded):")
+    monitored = table[~table["reference"]]
+    by_cond = monitored.groupby("condition")["flagged"].agg(["count", "sum"])
+    by_cond["rate"] = by_cond["sum"] / by_cond["count"]
+    for cond, r in by_cond.iterrows():
+        label = "false alarms" if cond == "normal" else "flagged"
+        echo(f"  {cond:<16} {int(r['sum']):>5} of {int(r['count']):>5} {label} ({100 * r['rate']:.1f} %)")
+    ref = table[table["reference"]]
+    echo(f"  {'(reference lots)':<16} {int(ref['flagged'].sum()):>5} of {len(ref):>5} flagged "
+         f"({100 * ref['flagged'].mean():.1f} %; in-sample)")
+    echo("")
+    echo("flagged actuations per rig (rows) and lot (columns):")
+    pivot = table.pivot_table(index="rig", columns="lot", values="flagged", aggfunc="sum", fill_value=0)
+    echo(pivot.astype(int).to_string())
+    echo("")
+    for event in profile.event_names:
+        for line in lot_chart_summary(table, event):
+            echo(line)
+    echo("")
+    echo(f"results per actuation: {out / 'results.csv'}; models: {model_dir}")
+    echo(f"demo finished in {time.perf_counter() - t0:.1f} s")
+    return table
+
+
+def lot_chart_summary(table: pd.DataFrame, event: str) -> list[str]:
+    """Lot-by-lot individuals chart of one event's residual, one point per lot on each rig, and what it suggests.
+
+    The point is the mean over a lot's actuations on one rig of log(event residual ratio) (the residual of the
+    event's mean spectrum over its reference median): a lasting change that single actuations cannot show moves
+    the mean of a lot. Phase I limits come from the reference lots' points (NIST e-Handbook 6.3.2.2: centre
+    ± 3·MR̄/d2); new points are checked against them and by the Western Electric rules, rig by rig in time order.
+    A lot beyond the limits on most rigs suggests the lot; a rig beyond them on several lots suggests the rig.
+    """
+    from .monitor import WESTERN_ELECTRIC, check_rules, fit_individuals_limits
+
+    col = f"{event}.event_spe_ratio"
+    if col not in table:
+        return []
+    data = table[table["qc_failed"].fillna("").eq("") & table[col].notna() & (table[col] > 0)].copy()
+    data["log_ratio"] = np.log(data[col].astype(float))
+    points = (data.groupby(["rig", "lot"], sort=False)
+              .agg(value=("log_ratio", "mean"), n=("log_ratio", "size"), reference=("reference", "all"),
+                   first=("recorded_at", "min"))
+              .reset_index().sort_values("first"))
+    ref = points[points["reference"]]
+    if len(ref) < 3:
+        return [f"{event}: too few reference points ({len(ref)}) for lot-by-lot limits"]
+    limits = fit_individuals_limits(ref["value"].to_numpy())
+    points["beyond"] = points["value"] > limits.ucl
+    points["rules"] = ""
+    for rig in points["rig"].unique():
+        on_rig = points.index[points["rig"] == rig]
+        vals = points.loc[on_rig, "value"].to_numpy()
+        for v in check_rules(vals, centre=limits.centre, sigma=limits.sigma, rules=WESTERN_ELECTRIC):
+            at = on_rig[v.index]
+            points.loc[at, "rules"] = ",".join(filter(None, [points.loc[at, "rules"], v.rule]))
+    points["signal"] = points["beyond"] | points["rules"].ne("")
+    new = points[~points["reference"]]
+    lines = [f"lot-by-lot chart, {event} (mean log event residual per lot and rig; UCL {limits.ucl:.2f} from "
+             f"{len(ref)} reference points; Western Electric rules per rig):"]
+    n_rigs = points["rig"].nunique()
+    explained = set()
+    for lot, grp in new.groupby("lot", sort=False):
+        hit = grp.loc[grp["signal"], "rig"].tolist()
+        if len(hit) >= max(2, (n_rigs + 1) // 2):
+            lines.append(f"  lot {lot}: signals on {len(hit)} of {len(grp)} rigs -> suggests the lot")
+            explained |= {(r, lot) for r in hit}
+    for rig, grp in new.groupby("rig", sort=False):
+        hit = [lot for lot in grp.loc[grp["signal"], "lot"] if (rig, lot) not in explained]
+        if len(hit) >= 2:
+            lines.append(f"  rig {rig}: signals on lots {', '.join(hit)} -> suggests the rig")
+            explained |= {(rig, lot) for lot in hit}
+    for row in new[new["signal"]].itertuples():
+        if (row.rig, row.lot) not in explained:
+            why = "beyond the limit" if row.beyond else f"run rule {row.rules}"
+            lines.append(f"  rig {row.rig}, lot {row.lot}: {why} -> look at its units")
+    if len(lines) == 1:
+        lines.append("  no lot or rig beyond the limits")
+    return lines

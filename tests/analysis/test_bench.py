@@ -1,0 +1,31 @@
+"""The benchmarks run and print their ratios last (their values are measurements, not asserted)."""
+
+from __future__ import annotations
+
+import math
+import re
+
+from analysis.bench import bench_analyse, bench_score
+
+
+def _ratio(line: str, name: str) -> float:
+    m = re.fullmatch(rf"{name}=([0-9.]+)", line)
+    assert m, line
+    value = float(m.group(1))
+    assert math.isfinite(value) and value > 0
+    return value
+
+
+def test_bench_analyse_prints_its_ratios_last():
+    lines = []
+    result = bench_analyse(n_files=4, repeat=1, out=lines.append)
+    assert result["files"] == 4
+    assert _ratio(lines[-2], "ratio_to_floor") == round(result["ratio_to_floor"], 3)
+    assert _ratio(lines[-1], "speedup_vs_peer") == round(result["speedup_vs_peer"], 3)
+
+
+def test_bench_score_prints_its_ratio_last():
+    lines = []
+    result = bench_score(n_actuations=300, n_slices=10, n_bands=12, repeat=1, out=lines.append)
+    assert result["rows"] == 3000
+    assert _ratio(lines[-1], "ratio_to_floor") == round(result["ratio_to_floor"], 3)
