@@ -119,7 +119,10 @@ def fit_event_model(
     fs: FeatureSet, *, profile: DeviceProfile, n_components: int | None = None, scaling: str = "unit",
     alpha: float = 0.01,
 ) -> tuple[ReferenceModel, dict]:
-    """Fit one event's reference model; returns it with the metadata to store beside it."""
+    """Fit one event's reference model; returns it with the metadata to store beside it.
+
+    alpha is this event's actuation-level false-alarm rate (callers modelling several events split theirs).
+    """
     distinct = sorted(set(fs.lots))
     model = ReferenceModel(n_components=n_components, scaling=scaling, actuation_alpha=alpha)
     model.fit(
@@ -141,6 +144,7 @@ def fit_event_model(
                   "n_bands": int(fs.X.shape[2]), "weighting": spec.bands.weighting},
         "created_at": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "created_by": _user(),
+        "actuation_alpha": alpha,
     }
     model.metadata_ = meta  # what save() will store; load() restores it
     return model, meta
@@ -185,7 +189,10 @@ def fit_models_from_paths(
         if fs.excluded:
             log(f"{event}: {len(fs.excluded)} recording(s) left out of the reference, e.g. {fs.excluded[0][0]}: "
                 f"{fs.excluded[0][1]}")
-        model, meta = fit_event_model(fs, profile=profile, n_components=n_components, scaling=scaling, alpha=alpha)
+        # An actuation is flagged when any of its event models flags: split alpha across the events (Bonferroni)
+        # so the actuation as a whole keeps the nominal false-alarm rate.
+        model, meta = fit_event_model(fs, profile=profile, n_components=n_components, scaling=scaling,
+                                      alpha=alpha / len(profile.event_names))
         json_path, _ = model.save(out / event, metadata=meta)
         written.append((event, json_path, model))
     return written
