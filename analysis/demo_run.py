@@ -49,7 +49,9 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
         echo(f"generating the {scenario!r} demo scenario into {inbox} ...")
         summary = generate(inbox, scenario=scenario, seed=seed, jobs=jobs)
         (inbox / ".harken-demo.json").write_text(json.dumps(key))
-        echo(f"  {summary} ({time.perf_counter() - t0:.1f} s)")
+        from .cli import describe_generation
+
+        echo(f"  {describe_generation(summary)} in {time.perf_counter() - t0:.1f} s")
 
     truth = pd.read_csv(inbox / "ground_truth.csv")
     profiles = sorted(set(json.loads((inbox / Path(f).with_suffix(".json")).read_text())["profile"]

@@ -323,7 +323,7 @@ def generate(out_dir, *, scenario="default", seed: int | None = None, jobs: int 
         raise ScenarioError(f"jobs must be an integer >= 1, got {jobs!r}")
     out = Path(out_dir)
     if out.exists() and (not out.is_dir() or any(out.iterdir())):
-        raise FileExistsError(f"{out}: the output folder must be new or empty (remove it or choose another)")
+        raise ScenarioError(f"{out}: the output folder must be new or empty (remove it or choose another)")
     plans = plan_scenario(sc, seed=seed)
     out.mkdir(parents=True, exist_ok=True)
 

@@ -119,7 +119,7 @@ def test_other_seed_other_audio(small, tmp_path):
 
 def test_refuses_non_empty_folder(small):
     out, *_ = small
-    with pytest.raises(FileExistsError, match="must be new or empty"):
+    with pytest.raises(ScenarioError, match="must be new or empty"):
         generate(out, scenario="small")
 
 
