@@ -59,14 +59,13 @@ import hashlib
 import io
 import json
 import math
-from pathlib import Path
 
 import numpy as np
 from scipy import stats
 
 from analysis.errors import ModelError, ParameterError
 from analysis.monitor.contributions import band_contributions
-from analysis.monitor.limits import spe_limit_box, spe_limit_jackson_mudholkar, t2_limit_new
+from analysis.monitor.limits import spe_limit_box, spe_limit_jackson_mudholkar, t2_limit_new, t2_limit_reference
 
 __all__ = ["ReferenceModel", "MonitoringResult", "CrossValidationCurve", "FORMAT_NAME", "FORMAT_VERSION"]
 
@@ -425,6 +424,8 @@ class ReferenceModel:
         self.reference_lots_ = lot_labels
         self.cv_ = CrossValidationCurve(np.arange(a_cap + 1), press, chosen, fold_kind, len(folds))
         self.t2_limit_ = t2_limit_new(n_rows, a, self.alpha)
+        # For the reference rows themselves (Phase I, Tracy, Young & Mason 1992): the beta form.
+        self.t2_limit_reference_ = t2_limit_reference(n_rows, a, self.alpha)
         self.spe_limit_ = spe_limit_jackson_mudholkar(self.residual_eigenvalues_, self.alpha)
         scores, t2, spe, event_spe = _project(x, mean, scale, self.loadings_, self.eigenvalues_)
         self.event_spe_reference_ = _median_ref(event_spe)
@@ -511,11 +512,11 @@ class ReferenceModel:
         )
 
     def contributions(self, x_slice, *, slice_index=None):
-        """Band contributions to T² and SPE for one slice row (n_bands,) or a batch (n_rows, n_bands), in dB.
+        """Band contributions to T² and SPE for one slice row (n_bands,) or a batch (n_rows, n_bands).
 
         With slice centring a row needs its slice: give ``slice_index`` (an int, or one per row), or pass a
         whole actuation (n_slices, n_bands). Computed on the scaled data; each row's contributions sum to its
-        T² and SPE.
+        T² and SPE (in the model's scaled units, not dB).
         """
         self._check_fitted()
         x = np.asarray(x_slice, dtype=float)
@@ -546,31 +547,28 @@ class ReferenceModel:
                "envelope_centre_", "envelope_spread_", "calibration_t2_ratio_", "calibration_spe_ratio_",
                "calibration_distance_", "calibration_event_spe_ratio_", "slice_times_s_", "band_centres_hz_")
     _SCALARS = ("n_components_", "n_reference_", "n_actuations_", "n_slices_", "n_bands_", "t2_limit_",
+                "t2_limit_reference_",
                 "spe_limit_", "spe_limit_box_", "t2_ratio_threshold_", "spe_ratio_threshold_",
                 "distance_threshold_", "event_spe_threshold_", "event_spe_reference_", "actuation_alpha_each_")
 
-    def save(self, path, *, metadata=None):
-        """Write the model as two files: path with its suffix replaced by .json (parameters, scalars, limits,
-        metadata) and by .npz (arrays).
+    def to_documents(self, *, metadata=None):
+        """The model as (JSON text, npz bytes): parameters, scalars, limits and caller metadata in the JSON, the
+        arrays in the npz (plain numeric arrays only, no pickled objects; its SHA-256 is recorded in the JSON).
 
         metadata: JSON-serialisable dict supplied by the caller (e.g. profile, event, lots, created_at,
-        created_by). The .npz holds plain numeric arrays only (no pickled objects); its SHA-256 is recorded in
-        the JSON and checked on load. Returns (json_path, npz_path).
+        created_by). Writing them to files is the caller's business (analysis.modelfile).
         """
         self._check_fitted()
         if metadata is not None and not isinstance(metadata, dict):
             raise ParameterError(f"metadata must be a dict or None; got {type(metadata).__name__}")
-        path = Path(path)
-        json_path, npz_path = path.with_suffix(".json"), path.with_suffix(".npz")
         arrays = {k.rstrip("_"): np.asarray(getattr(self, k), dtype=float)
-                  for k in self._ARRAYS if getattr(self, k) is not None}
+                  for k in self._ARRAYS if getattr(self, k, None) is not None}
         buf = io.BytesIO()
         np.savez(buf, **arrays)
         blob = buf.getvalue()
         doc = {
             "format": FORMAT_NAME,
             "format_version": FORMAT_VERSION,
-            "arrays_file": npz_path.name,
             "arrays_sha256": hashlib.sha256(blob).hexdigest(),
             "parameters": self.get_params(),
             "learned": {k: (int(v) if _is_int(v) else float(v)) for k, v in
@@ -580,43 +578,33 @@ class ReferenceModel:
                 "press": [float(p) if np.isfinite(p) else None for p in self.cv_.press],
                 "chosen": self.cv_.chosen, "folds": self.cv_.folds, "n_folds": self.cv_.n_folds,
             },
-            "metadata": metadata or {},
+            "metadata": metadata if metadata is not None else (getattr(self, "metadata_", None) or {}),
         }
         try:
             text = json.dumps(doc, indent=2, ensure_ascii=False, allow_nan=False)
         except (TypeError, ValueError) as exc:
             raise ParameterError(f"metadata must be JSON-serialisable: {exc}") from exc
-        npz_path.write_bytes(blob)
-        json_path.write_text(text, encoding="utf-8")
-        return json_path, npz_path
+        return text, blob
 
     @classmethod
-    def load(cls, path):
-        """Read a model written by save(); path may name the .json file or the common stem."""
-        json_path = Path(path).with_suffix(".json")
+    def from_documents(cls, json_text, npz_bytes, *, source="reference model"):
+        """A model from to_documents() output; ``source`` names it in errors (a file or store row)."""
         try:
-            doc = json.loads(json_path.read_text(encoding="utf-8"))
-        except OSError as exc:
-            raise ModelError(f"{json_path}: cannot read reference model: {exc.strerror or exc}") from exc
+            doc = json.loads(json_text)
         except json.JSONDecodeError as exc:
-            raise ModelError(f"{json_path}: not a reference model file (invalid JSON: {exc.msg})") from exc
+            raise ModelError(f"{source}: not a reference model (invalid JSON: {exc.msg})") from exc
         if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME:
-            raise ModelError(f"{json_path}: not a reference model file (format is not {FORMAT_NAME!r})")
+            raise ModelError(f"{source}: not a reference model (format is not {FORMAT_NAME!r})")
         version = doc.get("format_version")
         if not _is_int(version) or version > FORMAT_VERSION or version < 1:
             raise ModelError(
-                f"{json_path}: format version {version!r} is not supported; this program reads version "
+                f"{source}: format version {version!r} is not supported; this program reads version "
                 f"{FORMAT_VERSION} (a newer model needs a newer Harken)"
             )
-        npz_path = json_path.with_name(doc.get("arrays_file", json_path.with_suffix(".npz").name))
+        if hashlib.sha256(npz_bytes).hexdigest() != doc.get("arrays_sha256"):
+            raise ModelError(f"{source}: arrays do not match the checksum in the model's JSON (file changed?)")
         try:
-            blob = npz_path.read_bytes()
-        except OSError as exc:
-            raise ModelError(f"{npz_path}: cannot read reference model arrays: {exc.strerror or exc}") from exc
-        if hashlib.sha256(blob).hexdigest() != doc.get("arrays_sha256"):
-            raise ModelError(f"{npz_path}: arrays do not match the checksum in {json_path.name} (file changed?)")
-        try:
-            with np.load(io.BytesIO(blob), allow_pickle=False) as npz:
+            with np.load(io.BytesIO(npz_bytes), allow_pickle=False) as npz:
                 arrays = {k: npz[k] for k in npz.files}
             model = cls(**doc["parameters"])
             for k in cls._ARRAYS:
@@ -628,6 +616,20 @@ class ReferenceModel:
             model.cv_ = CrossValidationCurve(np.arange(press.size), press, cv["chosen"], cv["folds"], cv["n_folds"])
             model.reference_lots_ = doc.get("reference_lots")
         except (KeyError, TypeError, ValueError) as exc:
-            raise ModelError(f"{json_path}: reference model file is incomplete or damaged ({exc!r})") from exc
+            raise ModelError(f"{source}: reference model is incomplete or damaged ({exc!r})") from exc
         model.metadata_ = doc.get("metadata", {})
         return model
+
+    # Kept for callers written against the first version; they delegate to analysis.modelfile (files live there).
+    def save(self, path, *, metadata=None):
+        """Write <path>.json and <path>.npz (see analysis.modelfile.save_model)."""
+        from analysis.modelfile import save_model
+
+        return save_model(self, path, metadata=metadata)
+
+    @classmethod
+    def load(cls, path):
+        """Read a model written by save() (see analysis.modelfile.load_model)."""
+        from analysis.modelfile import load_model
+
+        return load_model(path)

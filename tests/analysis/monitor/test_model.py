@@ -14,6 +14,7 @@ from analysis.monitor import (
     spe_limit_box,
     spe_limit_jackson_mudholkar,
     t2_limit_new,
+    t2_limit_reference,
 )
 
 
@@ -104,6 +105,7 @@ def test_limits_and_envelope_follow_their_definitions(reference):
     x, _, m = reference
     a = m.n_components_
     assert m.t2_limit_ == t2_limit_new(m.n_reference_, a, 0.01)  # NIST e-Handbook 6.5.4.4
+    assert m.t2_limit_reference_ == t2_limit_reference(m.n_reference_, a, 0.01)  # Tracy, Young & Mason 1992
     assert m.spe_limit_ == spe_limit_jackson_mudholkar(m.residual_eigenvalues_, 0.01)  # Jackson & Mudholkar 1979
     r = m.score(x)
     assert m.spe_limit_box_ == pytest.approx(
@@ -293,3 +295,13 @@ def test_fit_input_errors(reference):
         ReferenceModel().fit(x[:10], lots=[1, 2])
     with pytest.raises(ParameterError, match=r"X must have shape \(n_actuations, n_slices, n_bands\)"):
         ReferenceModel().fit(x[0])
+
+
+def test_documents_round_trip_without_files(reference):
+    x, _, m = reference
+    text, blob = m.to_documents(metadata={"event": "e"})
+    again = ReferenceModel.from_documents(text, blob, source="row 7")
+    np.testing.assert_array_equal(again.score(x[:5]).t2, m.score(x[:5]).t2)
+    assert again.metadata_ == {"event": "e"}
+    with pytest.raises(ModelError, match=r"row 7: arrays do not match the checksum"):
+        ReferenceModel.from_documents(text, blob[:-1] + b"x", source="row 7")
