@@ -62,7 +62,7 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--event", action="append", default=[], metavar="EVENT",
                    help="event to model (repeatable; default: every event of the profile)")
     f.add_argument("--out", required=True, metavar="MODEL",
-                   help="model file (one event) or folder (one file per event)")
+                   help="folder for one model per event (<event>.json + <event>.npz), or NAME.json for one --event")
     f.add_argument("--components", type=int, default=None, help="fix the number of components (default: by CV)")
     f.add_argument("--scaling", choices=("centre", "unit", "pareto"), default="unit")
     f.add_argument("--alpha", type=float, default=0.01, help="actuation-level false-alarm rate (default 0.01)")
@@ -109,6 +109,10 @@ def main(argv: list[str] | None = None) -> int:
     except AnalysisError as exc:
         print(f"harken: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except OSError as exc:  # a folder we cannot write, a disk that is full: say which path and why
+        where = exc.filename if exc.filename is not None else "harken"
+        print(f"harken: {where}: {exc.strerror or exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("harken: interrupted", file=sys.stderr)
         return 130
@@ -121,7 +125,9 @@ def main(argv: list[str] | None = None) -> int:
 
 def _cmd_analyse(args) -> int:
     from . import pipeline
+    from .errors import ParameterError
     from .io import read_audio
+    from .profiles import load_profile
     from .signal.features import calibration_offset_db
 
     path = Path(args.file)
@@ -130,9 +136,16 @@ def _cmd_analyse(args) -> int:
     offset = 0.0
     if args.calibration:
         cal = read_audio(args.calibration)
-        offset = calibration_offset_db(
-            cal.channel(0), sample_rate_hz=cal.sample_rate_hz, level_db=args.calibration_level_db
-        )
+        mic = 0
+        if args.profile:
+            mic = load_profile(args.profile, search_dirs=args.profiles).channels.get("mic", 0)
+        try:
+            offset = calibration_offset_db(
+                cal.channel(min(mic, cal.n_channels - 1)), sample_rate_hz=cal.sample_rate_hz,
+                level_db=args.calibration_level_db,
+            )
+        except ParameterError as exc:
+            raise AnalysisError(f"{args.calibration}: not usable as a calibration recording ({exc})") from None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = pipeline.analyse_file(

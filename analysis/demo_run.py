@@ -32,6 +32,7 @@ def _generated_already(inbox: Path, key: dict) -> bool:
 def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: int | None = None, echo=print):
     """Run the whole demo into the folder ``out``; returns the per-recording results table."""
     from .demo import generate
+    from .modelfile import save_model
     from .profiles import load_profile
     from .scoring import analyse_many, feature_set, fit_event_model, monitor_result
 
@@ -74,7 +75,7 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
         fs = feature_set(ref_results, event)
         # split the nominal 1 % across the events so a whole actuation keeps it (Bonferroni)
         model, meta = fit_event_model(fs, profile=profile, alpha=0.01 / len(profile.event_names))
-        model.save(model_dir / event, metadata=meta)
+        save_model(model, model_dir / event, metadata=meta)
         models[event] = model
         lots = ", ".join(sorted(set(fs.lots)))
         echo(f"reference model {event}: {model.n_components_} components from {len(fs.paths)} actuations of "
@@ -122,6 +123,9 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
     for event in profile.event_names:
         for line in lot_chart_summary(table, event):
             echo(line)
+    echo("")
+    for line in unit_summary(table, profile.event_names):
+        echo(line)
     echo("")
     echo(f"results per actuation: {out / 'results.csv'}; models: {model_dir}")
     echo(f"demo finished in {time.perf_counter() - t0:.1f} s")
@@ -182,4 +186,49 @@ def lot_chart_summary(table: pd.DataFrame, event: str) -> list[str]:
             lines.append(f"  rig {row.rig}, lot {row.lot}: {why} -> look at its units")
     if len(lines) == 1:
         lines.append("  no lot or rig beyond the limits")
+    return lines
+
+
+def unit_points(table: pd.DataFrame, event: str) -> pd.DataFrame:
+    """Per unit: mean log event residual of one event over its actuations that passed QC, with its labels."""
+    col = f"{event}.event_spe_ratio"
+    data = table[table["qc_failed"].fillna("").eq("") & table[col].notna() & (table[col] > 0)].copy()
+    data["log_ratio"] = np.log(data[col].astype(float))
+    return (data.groupby("unit", sort=False)
+            .agg(value=("log_ratio", "mean"), n=("log_ratio", "size"), reference=("reference", "all"),
+                 lot=("lot", "first"), rig=("rig", "first"),
+                 condition=("condition", lambda c: ",".join(sorted(set(c)))))
+            .reset_index())
+
+
+def unit_summary(table: pd.DataFrame, events) -> list[str]:
+    """Units whose mean event residual is beyond an individuals-chart limit from the reference units.
+
+    A damaged unit changes every one of its actuations a little; the mean over its actuations shows what single
+    actuations hide. Limits: centre ± 3·MR̄/d2 of the reference units' points (NIST e-Handbook 6.3.2.2).
+    """
+    from .monitor import fit_individuals_limits
+
+    lines = ["units beyond their limit (mean log event residual per unit; limits from the reference units):"]
+    caught: dict[str, set] = {}
+    totals: dict[str, int] = {}
+    for event in events:
+        if f"{event}.event_spe_ratio" not in table:
+            continue
+        pts = unit_points(table, event)
+        ref = pts[pts["reference"]]
+        if len(ref) < 3:
+            continue
+        limits = fit_individuals_limits(ref["value"].to_numpy())
+        new = pts[~pts["reference"]]
+        for cond, grp in new.groupby("condition"):
+            totals[cond] = len(grp)
+        hit = new[new["value"] > limits.ucl]
+        for row in hit.itertuples():
+            caught.setdefault(row.condition, set()).add(row.unit)
+        if len(hit):
+            lines.append(f"  {event}: " + ", ".join(f"{u} ({r}, {l})" for u, r, l in
+                                                  zip(hit["unit"], hit["rig"], hit["lot"])))
+    lines.append("  units caught by condition (ground truth; a unit is labelled by its actuations' conditions): " +
+                 ", ".join(f"{c} {len(caught.get(c, ()))} of {n}" for c, n in sorted(totals.items())))
     return lines

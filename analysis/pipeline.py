@@ -15,7 +15,7 @@ from typing import Iterable
 import numpy as np
 
 from . import io
-from .errors import AudioError
+from .errors import AudioError, ProfileError
 from .profiles import BandSpec, DeviceProfile, EventSpec, load_profile
 from .signal import bands as _bands
 from .signal import events as _events
@@ -303,7 +303,12 @@ def analyse_file(
             raise AudioError(path, "no device profile given and no sidecar to name one")
         profile = sidecar.profile
     if not isinstance(profile, DeviceProfile):
-        profile = load_profile(profile, search_dirs=profile_dirs)
+        try:
+            profile = load_profile(profile, search_dirs=profile_dirs)
+        except ProfileError as exc:
+            if sidecar is not None and profile == sidecar.profile:
+                raise ProfileError(sidecar.path, f"its profile {profile!r} cannot be used: {exc.reason}") from None
+            raise
     audio = io.read_audio(path)
     mic_index, marker_index, source = markers_for(audio.n_channels, profile, sidecar)
     if mic_index >= audio.n_channels:

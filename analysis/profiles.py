@@ -356,6 +356,9 @@ def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
             if not isinstance(ev["bands"], dict):
                 c.fail(p + "bands", f"must be a table, got {ev['bands']!r}")
             ev_bands = _bands(c, ev["bands"], p + "bands.", bands)
+            if ev_bands.fmax_hz > sr_max / 2:
+                c.fail(p + "bands.fmax_hz", f"{ev_bands.fmax_hz:g} Hz is above the Nyquist frequency of "
+                                            f"sample_rate_max_hz ({sr_max / 2:g} Hz)")
         events.append(
             EventSpec(
                 name=ev_name, find=find, marker=marker, window_s=window, search_s=search, after=after,

@@ -18,6 +18,7 @@ from typing import Callable, Iterable, Sequence
 import numpy as np
 
 from .errors import AnalysisError, ModelError
+from .modelfile import load_model, save_model
 from .monitor import ReferenceModel
 from .pipeline import RecordingResult, analyse_file
 from .profiles import DeviceProfile, load_profile
@@ -170,7 +171,13 @@ def fit_models_from_paths(
     jobs: int | None = None,
     log: Callable[[str], None] = lambda msg: None,
 ) -> list[tuple[str, Path, ReferenceModel]]:
-    """Analyse the reference recordings and write one model per event into the folder ``out``."""
+    """Analyse the reference recordings and write one model per event into the folder ``out``.
+
+    ``out`` ending in .json writes that one file (and its .npz) for a single event. ``alpha`` is the actuation's
+    false-alarm rate, split evenly over the events fitted.
+    """
+    if not (isinstance(alpha, (int, float)) and 0.0 < alpha < 1.0):
+        raise AnalysisError(f"--alpha must be a number between 0 and 1 (a false-alarm rate), got {alpha!r}")
     if not isinstance(profile, DeviceProfile):
         profile = load_profile(profile, search_dirs=profile_dirs)
     events = list(events or profile.event_names)
@@ -182,7 +189,14 @@ def fit_models_from_paths(
     log(f"analysing {len(files)} reference recordings ...")
     results = analyse_many(files, profile=profile, jobs=jobs)
     out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
+    target = None
+    if out.suffix.lower() == ".json":
+        if len(events) != 1:
+            raise AnalysisError(f"{out}: a single model file holds one event; give one --event or a folder")
+        target = out
+        out.parent.mkdir(parents=True, exist_ok=True)
+    else:
+        out.mkdir(parents=True, exist_ok=True)
     written = []
     for event in events:
         fs = feature_set(results, event)
@@ -192,8 +206,8 @@ def fit_models_from_paths(
         # An actuation is flagged when any of its event models flags: split alpha across the events (Bonferroni)
         # so the actuation as a whole keeps the nominal false-alarm rate.
         model, meta = fit_event_model(fs, profile=profile, n_components=n_components, scaling=scaling,
-                                      alpha=alpha / len(profile.event_names))
-        json_path, _ = model.save(out / event, metadata=meta)
+                                      alpha=alpha / len(events))
+        json_path, _ = save_model(model, target if target is not None else out / event, metadata=meta)
         written.append((event, json_path, model))
     return written
 
@@ -206,7 +220,7 @@ def load_models(paths: Iterable[str | Path]) -> dict[str, ReferenceModel]:
         if p.is_dir() and not files:
             raise ModelError(f"{p}: folder holds no reference model (*.json)")
         for f in files:
-            model = ReferenceModel.load(f)
+            model = load_model(f)
             event = (getattr(model, "metadata_", None) or {}).get("event")
             if not event:
                 raise ModelError(f"{f}: model metadata names no event")

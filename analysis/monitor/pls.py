@@ -70,7 +70,7 @@ class PLS1(_Regressor):
 
     _PARAMS = ("n_components", "scale")
 
-    def __init__(self, n_components=2, *, scale=False):
+    def __init__(self, *, n_components=2, scale=False):
         self.n_components = n_components
         self.scale = scale
 
@@ -116,7 +116,7 @@ class OPLS(_Regressor):
 
     _PARAMS = ("n_orthogonal", "scale")
 
-    def __init__(self, n_orthogonal=1, *, scale=False):
+    def __init__(self, *, n_orthogonal=1, scale=False):
         self.n_orthogonal = n_orthogonal
         self.scale = scale
 

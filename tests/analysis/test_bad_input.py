@@ -141,3 +141,26 @@ def test_cli_prints_one_line_and_no_traceback_in_a_real_process(tmp_path):
     assert proc.returncode == 1
     assert "Traceback" not in proc.stderr
     assert proc.stderr.count("\n") == 1 and str(path) in proc.stderr
+
+
+def test_sidecar_naming_an_unknown_profile_names_the_sidecar(tmp_path, capsys):
+    path = write_recording(tmp_path, "odd", sidecar=sidecar_dict(profile="nosuch"))
+    code, _, err = run_cli(capsys, "analyse", str(path))
+    assert code == 1
+    assert err.startswith(f"harken: {tmp_path / 'odd.json'}: its profile 'nosuch' cannot be used: no device profile")
+
+
+def test_silent_calibration_recording_names_its_file(tmp_path, capsys):
+    path = write_recording(tmp_path, "rec")
+    cal = write_recording(tmp_path / "cal", "cal", data=np.zeros((4800, 1)), sidecar=False)
+    code, _, err = run_cli(capsys, "analyse", str(path), "--calibration", str(cal))
+    assert code == 1
+    assert err.startswith(f"harken: {cal}: not usable as a calibration recording (cal_signal is silent")
+
+
+def test_unwritable_output_folder_is_one_line(tmp_path, capsys):
+    blocker = tmp_path / "file"
+    blocker.write_text("x")
+    code, _, err = run_cli(capsys, "demo-data", "generate", "--out", str(blocker / "sub"), "--scenario", "small")
+    assert code == 1
+    assert err.startswith("harken: ") and str(blocker) in err and err.count("\n") == 1

@@ -57,6 +57,8 @@ def test_unknown_profile_name_lists_the_folders(tmp_path):
         (lambda d: d["profile"].update(schema=9), r"key 'profile\.schema': is 9, newer than this Harken understands"),
         (lambda d: d["quality"].update(clip_level=2.0), r"key 'quality\.clip_level'.*must be <= 1"),
         (lambda d: d["audio"]["channels"].update(marker=0), r"two roles share one channel"),
+        (lambda d: d["events"][1].update(bands={"fmax_hz": 60000.0}),
+         r"key 'events\.dose_release\.bands\.fmax_hz': 60000 Hz is above the Nyquist frequency"),
     ],
 )
 def test_invalid_profiles_name_the_key_and_value(edit, match):

@@ -46,6 +46,16 @@ def test_model_fit_for_one_event_only(small_scenario, truth, tmp_path):
                  "--components", "2", *refs]) == 0
     models = load_models([tmp_path / "metering_click.json"])
     assert list(models) == ["metering_click"] and models["metering_click"].n_components_ == 2
+    single = tmp_path / "one" / "click-model.json"
+    assert main(["model", "fit", "--profile", "demo-dpi", "--event", "metering_click", "--out", str(single),
+                 *refs]) == 0
+    assert sorted(p.name for p in single.parent.iterdir()) == ["click-model.json", "click-model.npz"]
+    assert load_models([single])["metering_click"].metadata_["actuation_alpha"] == 0.01  # one event: all of alpha
+
+
+def test_model_fit_refuses_a_bad_alpha_before_analysing(tmp_path, capsys):
+    assert main(["model", "fit", "--profile", "demo-dpi", "--alpha", "2", "--out", str(tmp_path), "nowhere"]) == 1
+    assert "--alpha must be a number between 0 and 1" in capsys.readouterr().err
 
 
 def test_analyse_with_a_model_adds_monitoring(small_scenario, truth, model_dir, capsys):

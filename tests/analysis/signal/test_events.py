@@ -294,7 +294,7 @@ def test_parameter_errors_name_the_parameter_and_value():
 # ---------------------------------------------------------------- energy detector and shared onsets
 
 def _swell(fs=48_000, start_s=0.4, seed=5):
-    """Noise floor, then noise that jumps 30 dB at start_s and stays (a swelling flow sound, no strike)."""
+    """Noise floor, then noise that steps up 30 dB at start_s and stays (no strike: flux sees little of it)."""
     rng = np.random.default_rng(seed)
     n = int(1.0 * fs)
     x = 1e-3 * rng.standard_normal(n)
@@ -303,7 +303,7 @@ def _swell(fs=48_000, start_s=0.4, seed=5):
     return x, fs
 
 
-def test_energy_detector_finds_a_swell_within_one_hop():
+def test_energy_detector_finds_a_level_rise_within_one_hop():
     x, fs = _swell()
     ev = find_event(x, sample_rate_hz=fs, name="release", search_start_s=0.3, search_stop_s=0.6,
                     max_length_s=0.3, detector="energy")
