@@ -102,6 +102,9 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
                        flagged=any(m["flagged"] for m in mon.values()), reasons=" | ".join(dict.fromkeys(reasons)))
         rows.append(row)
     table = pd.DataFrame(rows)
+    calibration = carrier_calibration(results, truth, event="dose_release")
+    if calibration is not None:
+        table["dose_release.predicted_carrier_d50_um"] = calibration.pop("predictions")
     table.to_csv(out / "results.csv", index=False)
 
     echo("")
@@ -126,6 +129,13 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
     echo("")
     for line in unit_summary(table, profile.event_names):
         echo(line)
+    if calibration is not None:
+        echo("")
+        echo(f"carrier size from the dose-release sound (PLS1 on the event's mean band levels, "
+             f"{calibration['n_components']} components, leave-one-lot-out): RMSECV "
+             f"{calibration['rmsecv']:.2f} µm over lots of {calibration['y_min']:.1f}–{calibration['y_max']:.1f} µm")
+        for lot, pred, true in calibration["by_lot"]:
+            echo(f"  lot {lot}: predicted {pred:6.2f} µm, measured {true:6.2f} µm")
     echo("")
     echo(f"results per actuation: {out / 'results.csv'}; models: {model_dir}")
     echo(f"demo finished in {time.perf_counter() - t0:.1f} s")
@@ -232,3 +242,39 @@ def unit_summary(table: pd.DataFrame, events) -> list[str]:
     lines.append("  units caught by condition (ground truth; a unit is labelled by its actuations' conditions): " +
                  ", ".join(f"{c} {len(caught.get(c, ()))} of {n}" for c, n in sorted(totals.items())))
     return lines
+
+
+def carrier_calibration(results, truth: pd.DataFrame, *, event: str, max_components: int = 6):
+    """PLS1 from an event's mean band levels to the carrier particle size of each actuation's lot.
+
+    In a lab the size would come from the lot's certificate (laser diffraction); here from the generator's ground
+    truth (``carrier_d50_um``). Components are chosen by the leave-one-lot-out RMSE (Wold's cross-validation of
+    PLS, folds by whole lots so no lot predicts itself). Returns None when the column or the event is absent;
+    else a dict with held-out ``predictions`` per recording (NaN where none), ``rmsecv``, ``n_components`` and
+    ``by_lot`` (lot, mean held-out prediction, measured size).
+    """
+    from .monitor import PLS1, cross_validate
+
+    if "carrier_d50_um" not in truth:
+        return None
+    keep = [i for i, (_, res, _) in enumerate(results)
+            if res is not None and res.passed_qc and event in res.features]
+    if len(keep) < 10:
+        return None
+    x = np.stack([results[i][1].features[event].levels_db.mean(axis=0) for i in keep])
+    y = truth["carrier_d50_um"].to_numpy(dtype=float)[keep]
+    lots = truth["lot"].to_numpy()[keep]
+    if len(set(lots)) < 3:
+        return None
+    best = None
+    for a in range(1, min(max_components, x.shape[1] - 1) + 1):
+        cv = cross_validate(PLS1(n_components=a), x, y, groups=lots)
+        if best is None or cv.rmse < best[1].rmse * 0.98:  # a component must earn 2 % to be kept
+            best = (a, cv)
+    a, cv = best
+    predictions = np.full(len(truth), np.nan)
+    predictions[keep] = cv.predictions
+    frame = pd.DataFrame({"lot": lots, "pred": cv.predictions, "true": y})
+    by_lot = [(lot, float(g["pred"].mean()), float(g["true"].mean())) for lot, g in frame.groupby("lot", sort=False)]
+    return {"predictions": predictions, "rmsecv": cv.rmse, "n_components": a, "y_min": float(y.min()),
+            "y_max": float(y.max()), "by_lot": by_lot}
