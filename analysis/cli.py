@@ -80,6 +80,10 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--bands", type=int, default=30)
     b.add_argument("--repeat", type=int, default=5)
 
+    from . import store_cli
+
+    store_cli.register(sub, bench=bsub)  # worker, ingest, reference, rescore, export, bench ingest
+
     p = sub.add_parser("demo", help="generate the demo scenario, fit the reference, analyse and summarise")
     p.add_argument("--out", default="demo_out", metavar="DIR")
     p.add_argument("--scenario", default="default")
@@ -92,6 +96,11 @@ def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
+        from . import store_cli
+
+        rc = store_cli.dispatch(args)
+        if rc is not None:
+            return rc
         if args.command == "analyse":
             return _cmd_analyse(args)
         if args.command == "demo-data":

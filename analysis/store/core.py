@@ -1,0 +1,341 @@
+"""``Store``: the results store opened from a URL (SQLite file by default, PostgreSQL for a lab-wide install).
+
+No module-level engine: every ``Store`` owns its engine; close it (or use it as a context manager) when done.
+SQLite runs in WAL mode with a busy timeout so the dashboard reads while a worker writes; write transactions
+start with BEGIN IMMEDIATE so two writers queue for the lock instead of failing on a read-to-write upgrade.
+"""
+
+from __future__ import annotations
+
+import contextlib
+from dataclasses import dataclass
+from pathlib import Path
+
+from sqlalchemy import create_engine, event
+from sqlalchemy.engine import make_url
+from sqlalchemy.exc import ArgumentError, DBAPIError, NoSuchModuleError
+from sqlalchemy.pool import StaticPool
+
+from . import queries, writes
+from .errors import StoreError
+from .schema import SCHEMA_VERSION, ensure_schema
+
+__all__ = ["Store", "DEFAULT_STORE_FILE", "default_store_url", "safe_url"]
+
+DEFAULT_STORE_FILE = "harken.db"
+#: SQLite waits this long for a lock before giving up (the dashboard's reads never need the write lock).
+SQLITE_BUSY_TIMEOUT_S = 30.0
+#: PostgreSQL advisory lock key held while the schema is checked or created (any fixed 64-bit number).
+_SCHEMA_LOCK_KEY = 0x4861726B656E  # "Harken"
+
+
+def default_store_url(folder: str | Path = ".") -> str:
+    """The embedded default: ``harken.db`` in ``folder`` (the working folder unless told otherwise)."""
+    return f"sqlite:///{(Path(folder) / DEFAULT_STORE_FILE).resolve()}"
+
+
+def _normalise(url) -> str:
+    """A bare file path means a SQLite file."""
+    text = str(url)
+    return text if "://" in text else f"sqlite:///{Path(text).resolve()}"
+
+
+def safe_url(url) -> str:
+    """The URL as it may be printed: the password replaced by ***."""
+    try:
+        return make_url(_normalise(url)).render_as_string(hide_password=True)
+    except ArgumentError:
+        return "<unparsable store URL>"
+
+
+@dataclass(frozen=True)
+class Claim:
+    """What registering a recording found: kind is "new", "retry" (a stale claim taken over), "duplicate"
+    (already analysed or quarantined: nothing to do) or "busy" (another worker holds a fresh claim)."""
+
+    kind: str
+    recording_id: int | None
+    status: str | None = None
+    original_name: str | None = None
+
+
+class Store:
+    """The results store. Open with ``Store.open(url)``; methods return DataFrames or dataclasses."""
+
+    def __init__(self, engine, *, url: str, files_dir: Path, stem: str = "harken"):
+        self.engine = engine
+        self.stem = stem  # archive and quarantine folders are <stem>-archive, <stem>-quarantine
+        self.url = url  # without password
+        self.files_dir = Path(files_dir)
+        self._ids: dict = {}  # (table, key) -> id of sites/rigs/lots/units already in the store
+
+    # ------------------------------------------------------------------ opening
+    @classmethod
+    def open(cls, url=None, *, files_dir: str | Path | None = None, create: bool = True) -> "Store":
+        """Open (and, if empty and ``create``, initialise) the store at ``url``.
+
+        ``url``: a SQLAlchemy URL (``sqlite:///path.db``, ``postgresql+psycopg://user@host/db``) or a file path;
+        None means ``harken.db`` in the working folder. ``files_dir``: where the archive and quarantine folders
+        live (default: beside a SQLite file, else the working folder). Raises StoreError naming the URL.
+        """
+        text = _normalise(url if url is not None else default_store_url())
+        where = safe_url(text)
+        try:
+            u = make_url(text)
+        except ArgumentError as exc:
+            raise StoreError(f"{where}: not a store URL ({exc})") from None
+        backend = u.get_backend_name()
+        if backend not in ("sqlite", "postgresql"):
+            raise StoreError(f"{where}: unsupported database {backend!r}; use sqlite:///FILE or "
+                             "postgresql+psycopg://USER@HOST/DB")
+        db_file = None
+        if backend == "sqlite":
+            db_file = u.database if u.database not in (None, "", ":memory:") else None
+            if db_file is not None:
+                parent = Path(db_file).resolve().parent
+                if not parent.is_dir():
+                    raise StoreError(f"{where}: folder {parent} does not exist")
+                if not create and not Path(db_file).exists():
+                    raise StoreError(f"{where}: no store there (file {db_file} does not exist)")
+        if files_dir is None:
+            files_dir = Path(db_file).resolve().parent if db_file else Path.cwd()
+        try:
+            engine = _make_engine(u, memory=backend == "sqlite" and db_file is None)
+        except NoSuchModuleError as exc:
+            raise StoreError(f"{where}: database driver not installed ({exc})") from None
+        except ModuleNotFoundError as exc:
+            raise StoreError(f"{where}: database driver not installed ({exc.name}); for PostgreSQL install "
+                             "psycopg[binary]") from None
+        store = cls(engine, url=where, files_dir=Path(files_dir), stem=Path(db_file).stem if db_file else "harken")
+        try:
+            with engine.connect().execution_options(harken_write=True) as conn, conn.begin():
+                if backend == "postgresql":
+                    # Two workers opening a new store at once: one creates the tables, the other waits here.
+                    conn.exec_driver_sql(f"SELECT pg_advisory_xact_lock({_SCHEMA_LOCK_KEY})")
+                if create:
+                    ensure_schema(conn, where=where, known_version=SCHEMA_VERSION, harken_version=_harken_version())
+                else:
+                    from sqlalchemy import inspect
+
+                    if not inspect(conn).get_table_names():
+                        raise StoreError(f"{where}: the database is empty (not a Harken store yet)")
+                    ensure_schema(conn, where=where)
+        except StoreError:
+            engine.dispose()
+            raise
+        except DBAPIError as exc:
+            engine.dispose()
+            raise StoreError(f"{where}: cannot open the store: {_reason(exc)}") from None
+        return store
+
+    @property
+    def dialect(self) -> str:
+        return self.engine.dialect.name
+
+    @property
+    def archive_dir(self) -> Path:
+        """Content-addressed originals of analysed recordings (the dashboard plays audio from here)."""
+        return self.files_dir / f"{self.stem}-archive"
+
+    @property
+    def quarantine_dir(self) -> Path:
+        """Recordings that could not be analysed, kept as delivered with a hash prefix."""
+        return self.files_dir / f"{self.stem}-quarantine"
+
+    def close(self) -> None:
+        self.engine.dispose()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+    def __repr__(self):
+        return f"Store({self.url!r})"
+
+    # ------------------------------------------------------------------ transactions
+    @contextlib.contextmanager
+    def read(self):
+        """A connection inside one read transaction: every query in it sees the same committed state
+        (SQLite: a WAL snapshot; PostgreSQL: REPEATABLE READ, as READ COMMITTED gives each statement its own)."""
+        try:
+            conn = self.engine.connect()
+            if self.dialect == "postgresql":
+                conn = conn.execution_options(isolation_level="REPEATABLE READ")
+            with conn, conn.begin():
+                yield conn
+        except DBAPIError as exc:
+            raise StoreError(f"{self.url}: read failed: {_reason(exc)}") from None
+
+    @contextlib.contextmanager
+    def write(self):
+        """A connection inside one write transaction, committed on success, rolled back on any error."""
+        try:
+            with self.engine.connect().execution_options(harken_write=True) as conn, conn.begin():
+                yield conn
+        except (DBAPIError, OverflowError) as exc:  # OverflowError: an integer too large for SQLite
+            self._ids.clear()  # ids cached during the failed transaction may not exist
+            raise StoreError(f"{self.url}: write failed: {_reason(exc)}") from None
+        except BaseException:
+            self._ids.clear()
+            raise
+
+    # ------------------------------------------------------------------ writes (analysis.store.writes)
+    def claim(self, content_hash: str, original_name: str, size_bytes: int, *, worker: str,
+              claim_timeout_s: float) -> Claim:
+        """Register a recording by its content hash and claim it for ``worker`` (see Claim)."""
+        with self.write() as conn:
+            return writes.claim(conn, content_hash, original_name, size_bytes, worker=worker,
+                                claim_timeout_s=claim_timeout_s)
+
+    def claim_many(self, entries, *, worker: str, claim_timeout_s: float) -> list[Claim]:
+        """``claim`` for each (content_hash, original_name, size_bytes) of ``entries``, in one transaction."""
+        with self.write() as conn:
+            return [writes.claim(conn, h, name, size, worker=worker, claim_timeout_s=claim_timeout_s)
+                    for h, name, size in entries]
+
+    def commit_analyses(self, items, *, worker: str) -> list[int | None]:
+        """Write analysed recordings (``writes.Analysed`` items) in one transaction, each whole; returns the
+        actuation id per item, or None where the claim was lost to another worker (nothing of it written)."""
+        with self.write() as conn:
+            return writes.commit_analyses(conn, self._ids, list(items), worker=worker)
+
+    def commit_analysis(self, recording_id: int, *, worker: str, result, archive_path: str,
+                        scored: dict) -> int | None:
+        """Write every result of one analysed recording in one transaction; returns the actuation id, or None
+        when the claim was lost to another worker (nothing written)."""
+        return self.commit_analyses([writes.Analysed(recording_id, result, archive_path, scored)], worker=worker)[0]
+
+    def commit_quarantine(self, recording_id: int, *, worker: str, reason: str, quarantine_path: str,
+                          sidecar_json: str | None = None) -> bool:
+        """Mark a claimed recording as quarantined with its reason; False when the claim was lost."""
+        with self.write() as conn:
+            return writes.commit_quarantine(conn, recording_id, worker=worker, reason=reason,
+                                            quarantine_path=quarantine_path, sidecar_json=sidecar_json)
+
+    def reopen_quarantined(self, recording_id: int, *, worker: str, sidecar_text: str | None) -> bool:
+        """Claim a quarantined recording again if it came back with another sidecar (audited)."""
+        with self.write() as conn:
+            return writes.reopen_quarantined(conn, recording_id, worker=worker, sidecar_text=sidecar_text)
+
+    def release_claim(self, recording_id: int, *, worker: str) -> None:
+        """Forget a claim whose file vanished before it was analysed (so a later delivery is new again)."""
+        with self.write() as conn:
+            writes.release_claim(conn, recording_id, worker=worker)
+
+    def add_verdict(self, flag_id: int, *, person: str, verdict: str, note: str = "") -> int:
+        """Record a person's verdict on a flag (audited); returns the verdict id."""
+        with self.write() as conn:
+            return writes.add_verdict(conn, flag_id, person=person, verdict=verdict, note=note, where=self.url)
+
+    def activate_model(self, model_id: int, *, person: str) -> None:
+        """Make a stored model version the active one of its profile and event (audited)."""
+        with self.write() as conn:
+            writes.activate_model(conn, model_id, person=person, where=self.url)
+
+    def audit(self, *, person: str, action: str, target: str = "", detail: dict | None = None) -> None:
+        with self.write() as conn:
+            writes.audit(conn, person=person, action=action, target=target, detail=detail)
+
+    # ------------------------------------------------------------------ reads (analysis.store.queries)
+    def schema_version(self) -> int:
+        with self.read() as conn:
+            return queries.schema_version(conn)
+
+    def recordings(self, *, status: str | None = None):
+        with self.read() as conn:
+            return queries.recordings_df(conn, status=status)
+
+    def quarantine(self):
+        with self.read() as conn:
+            return queries.quarantine(conn)
+
+    def actuations(self, *, profile: str | None = None):
+        with self.read() as conn:
+            return queries.actuations_df(conn, profile=profile)
+
+    def export_actuations(self):
+        with self.read() as conn:
+            return queries.export_actuations(conn)
+
+    def flag_summary(self, *, by: tuple[str, ...] = ("rig", "lot")):
+        with self.read() as conn:
+            return queries.flag_summary(conn, by=by)
+
+    def flags(self, *, actuation_id: int | None = None, active_only: bool = True):
+        with self.read() as conn:
+            return queries.flags_df(conn, actuation_id=actuation_id, active_only=active_only)
+
+    def models(self, *, profile: str | None = None, event: str | None = None):
+        with self.read() as conn:
+            return queries.models(conn, profile=profile, event=event)
+
+    def load_model(self, model_id: int):
+        with self.read() as conn:
+            return queries.load_model(conn, model_id, where=self.url)
+
+    def active_models(self, profile: str) -> dict:
+        """{event: (model_id, ReferenceModel)} of the profile's active models."""
+        with self.read() as conn:
+            return queries.active_models(conn, profile, where=self.url)
+
+    def band_levels(self, profile: str, event: str, *, lots=None, passed_qc_only: bool = True):
+        with self.read() as conn:
+            return queries.band_levels(conn, profile, event, lots=lots, passed_qc_only=passed_qc_only)
+
+    def trajectory(self, actuation_id: int, event: str, *, model_id: int | None = None):
+        with self.read() as conn:
+            return queries.trajectory(conn, actuation_id, event, model_id=model_id, where=self.url)
+
+    def audit_log(self):
+        with self.read() as conn:
+            return queries.audit_log_df(conn)
+
+    def check_integrity(self) -> list[str]:
+        """Problems found (empty when every analysed recording is whole and every quarantined one has a reason)."""
+        with self.read() as conn:
+            return queries.check_integrity(conn)
+
+
+def _harken_version() -> str:
+    try:
+        from analysis import __version__
+
+        return __version__
+    except ImportError:  # pragma: no cover
+        return ""
+
+
+def _reason(exc) -> str:
+    orig = getattr(exc, "orig", None)
+    return str(orig if orig is not None else exc).strip().splitlines()[0]
+
+
+def _make_engine(u, *, memory: bool):
+    if u.get_backend_name() == "sqlite":
+        kwargs = {"connect_args": {"timeout": SQLITE_BUSY_TIMEOUT_S, "check_same_thread": False}}
+        if memory:
+            kwargs["poolclass"] = StaticPool
+        engine = create_engine(u, **kwargs)
+
+        @event.listens_for(engine, "connect")
+        def _on_connect(dbapi_conn, _record):
+            # Let SQLAlchemy's "begin" event, not the sqlite3 module, start transactions (SQLAlchemy's
+            # documented pysqlite recipe), so reads can BEGIN and writes BEGIN IMMEDIATE.
+            dbapi_conn.isolation_level = None
+            cur = dbapi_conn.cursor()
+            if not memory:
+                cur.execute("PRAGMA journal_mode=WAL")
+                cur.execute("PRAGMA synchronous=NORMAL")  # in WAL mode: durable at checkpoints, never corrupt
+            cur.execute(f"PRAGMA busy_timeout={int(SQLITE_BUSY_TIMEOUT_S * 1000)}")
+            cur.execute("PRAGMA foreign_keys=ON")
+            cur.close()
+
+        @event.listens_for(engine, "begin")
+        def _on_begin(conn):
+            write = conn.get_execution_options().get("harken_write", False)
+            conn.exec_driver_sql("BEGIN IMMEDIATE" if write else "BEGIN")
+
+        return engine
+    return create_engine(u, pool_pre_ping=True, connect_args={"connect_timeout": 10})

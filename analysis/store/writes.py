@@ -1,0 +1,329 @@
+"""Writes to the store, each a function of an open connection inside the caller's transaction.
+
+The claim protocol: a recording is registered by its content hash with status "claimed" before it is analysed;
+its results are written, and the status set to "analysed" (or "quarantined"), in one later transaction that
+first checks the claim is still this worker's. A worker killed in between leaves only a claim, which another
+worker takes over once it is older than the claim timeout.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from datetime import timedelta, timezone
+
+import numpy as np
+from sqlalchemy import and_, bindparam, func, select
+from sqlalchemy.dialects import postgresql, sqlite
+
+from .errors import StoreError
+from .schema import (
+    actuations,
+    audit_log,
+    events,
+    flags,
+    lots,
+    qc_results,
+    recordings,
+    reference_models,
+    rigs,
+    sites,
+    trajectories,
+    units,
+    utc_now,
+    verdicts,
+)
+
+__all__ = [
+    "Analysed", "claim", "reopen_quarantined", "commit_analyses", "commit_quarantine", "release_claim", "insert_scores", "insert_model",
+    "activate_model", "add_verdict", "audit", "f32", "f64", "num",
+]
+
+VERDICTS = ("confirmed", "false alarm", "recording", "rig", "lot", "unit", "other")
+
+
+def f32(a) -> bytes:
+    """Array as little-endian float32 bytes (the store's compact form)."""
+    return np.ascontiguousarray(a, dtype="<f4").tobytes()
+
+
+def f64(a) -> bytes:
+    return np.ascontiguousarray(a, dtype="<f8").tobytes()
+
+
+def num(x):
+    """A finite float or None (NaN and infinity are stored as NULL on every backend)."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _insert_ignore(conn, table, values: dict) -> int | None:
+    """INSERT ... ON CONFLICT DO NOTHING on SQLite and PostgreSQL alike; the new row's id, or None if the row
+    was there already (RETURNING, because the drivers' rowcount for this statement differs)."""
+    mod = postgresql if conn.dialect.name == "postgresql" else sqlite
+    return conn.execute(mod.insert(table).values(**values).on_conflict_do_nothing().returning(table.c.id)).scalar()
+
+
+# ------------------------------------------------------------------------------------------------------ claims
+def claim(conn, content_hash, original_name, size_bytes, *, worker, claim_timeout_s):
+    from .core import Claim
+
+    now = utc_now()
+    new_id = _insert_ignore(conn, recordings, dict(
+        content_hash=content_hash, original_name=original_name, size_bytes=int(size_bytes), received_at=now,
+        status="claimed", claimed_by=worker, claimed_at=now,
+    ))
+    if new_id is not None:
+        return Claim("new", new_id, "claimed", original_name)
+    row = conn.execute(
+        select(recordings.c.id, recordings.c.status, recordings.c.claimed_at, recordings.c.claimed_by,
+               recordings.c.original_name).where(recordings.c.content_hash == content_hash)
+    ).one()
+    if row.status != "claimed":
+        return Claim("duplicate", row.id, row.status, row.original_name)
+    if row.claimed_at is not None and row.claimed_at > now - timedelta(seconds=claim_timeout_s):
+        return Claim("busy", row.id, "claimed", row.original_name)
+    # Stale: take it over, but only if nobody else did since we looked (compare and set).
+    taken = conn.execute(
+        recordings.update()
+        .where(and_(recordings.c.id == row.id, recordings.c.status == "claimed",
+                    recordings.c.claimed_by == row.claimed_by, recordings.c.claimed_at == row.claimed_at))
+        .values(claimed_by=worker, claimed_at=now, original_name=original_name)
+    ).rowcount
+    return Claim("retry" if taken == 1 else "busy", row.id, "claimed", original_name)
+
+
+def reopen_quarantined(conn, recording_id, *, worker, sidecar_text) -> bool:
+    """Claim a quarantined recording again when it is delivered with a sidecar other than the one it had (the
+    usual fix for a quarantined file); False when the sidecar is the same (a plain duplicate) or it is not
+    quarantined (any more)."""
+    row = conn.execute(select(recordings.c.status, recordings.c.sidecar_json, recordings.c.error)
+                       .where(recordings.c.id == recording_id)).first()
+    if row is None or row.status != "quarantined" or row.sidecar_json == sidecar_text or sidecar_text is None:
+        return False
+    done = conn.execute(
+        recordings.update().where(and_(recordings.c.id == recording_id, recordings.c.status == "quarantined"))
+        .values(status="claimed", claimed_by=worker, claimed_at=utc_now())
+    ).rowcount
+    if done == 1:
+        audit(conn, person=worker, action="quarantine.retry", target=f"recording {recording_id}",
+              detail={"previous_reason": row.error})
+    return done == 1
+
+
+def _finish(conn, recording_id, worker, **values) -> bool:
+    """Set the final status of a claimed recording if the claim is still ``worker``'s."""
+    done = conn.execute(
+        recordings.update()
+        .where(and_(recordings.c.id == recording_id, recordings.c.status == "claimed",
+                    recordings.c.claimed_by == worker))
+        .values(claimed_by=None, claimed_at=None, analysed_at=utc_now(), **values)
+    ).rowcount
+    return done == 1
+
+
+def release_claim(conn, recording_id, *, worker):
+    conn.execute(recordings.delete().where(and_(recordings.c.id == recording_id, recordings.c.status == "claimed",
+                                                recordings.c.claimed_by == worker)))
+
+
+def commit_quarantine(conn, recording_id, *, worker, reason, quarantine_path, sidecar_json=None) -> bool:
+    return _finish(conn, recording_id, worker, status="quarantined", error=reason, archive_path=quarantine_path,
+                   sidecar_json=sidecar_json)
+
+
+# ------------------------------------------------------------------------------------------------- identifiers
+def _get_id(conn, cache, table, **key) -> int:
+    ck = (table.name, tuple(sorted(key.items())))
+    hit = cache.get(ck)
+    if hit is not None:
+        return hit
+    cond = and_(*[table.c[k] == v for k, v in key.items()])
+    row = conn.execute(select(table.c.id).where(cond)).first()
+    if row is None:
+        _insert_ignore(conn, table, key)
+        row = conn.execute(select(table.c.id).where(cond)).one()
+    cache[ck] = row.id
+    return row.id
+
+
+# ----------------------------------------------------------------------------------------------------- results
+def _utc_naive(dt):
+    if dt.tzinfo is None:
+        return dt
+    return dt.astimezone(timezone.utc).replace(tzinfo=None)
+
+
+@dataclass(frozen=True)
+class Analysed:
+    """One analysed recording ready to be written: its claim, result, archived original and scores
+    ({event: (model_id, (trajectory row, flag rows))}, see analysis.store.reference.score_result)."""
+
+    recording_id: int
+    result: object
+    archive_path: str
+    scored: dict
+
+
+def commit_analyses(conn, cache, items, *, worker) -> list[int | None]:
+    """Write analysed recordings (QC, actuation, events with band levels, scores, flags), each whole.
+
+    Rows of all items go in with one executemany per table. Returns the actuation id per item, or None for an
+    item whose claim is no longer ``worker``'s (nothing of it is written).
+    """
+    for it in items:
+        if it.result.sidecar is None:
+            raise StoreError(f"{it.result.path}: a recording needs its sidecar (site, rig, lot, unit) to be stored")
+    ids = [it.recording_id for it in items]
+    mine = set(conn.execute(
+        select(recordings.c.id)
+        .where(and_(recordings.c.id.in_(ids), recordings.c.status == "claimed", recordings.c.claimed_by == worker))
+        .with_for_update()  # PostgreSQL: hold the rows until commit; SQLite: BEGIN IMMEDIATE already does
+    ).scalars())
+    keep = [it for it in items if it.recording_id in mine]
+    if not keep:
+        return [None] * len(items)
+    now = utc_now()
+    conn.execute(
+        recordings.update().where(and_(recordings.c.id == bindparam("b_id"), recordings.c.claimed_by == worker)),
+        [dict(b_id=it.recording_id, status="analysed", error=None, archive_path=it.archive_path,
+              sample_rate_hz=int(it.result.sample_rate_hz), channels=int(it.result.n_channels),
+              duration_s=num(it.result.duration_s), profile=it.result.profile,
+              sidecar_json=json.dumps(it.result.sidecar.to_json(), ensure_ascii=False),
+              claimed_by=None, claimed_at=None, analysed_at=now) for it in keep],
+    )
+    act_rows = []
+    for it in keep:
+        sc, res = it.result.sidecar, it.result
+        site_id = _get_id(conn, cache, sites, name=sc.site)
+        rig_id = _get_id(conn, cache, rigs, site_id=site_id, name=sc.rig)
+        lot_id = _get_id(conn, cache, lots, name=sc.lot)
+        unit_id = _get_id(conn, cache, units, lot_id=lot_id, name=sc.unit)
+        act_rows.append(dict(
+            recording_id=it.recording_id, profile=res.profile, site_id=site_id, rig_id=rig_id, lot_id=lot_id,
+            unit_id=unit_id, actuation=int(sc.actuation), recorded_at=_utc_naive(sc.recorded_at),
+            recorded_at_text=sc.recorded_at.isoformat(), passed_qc=bool(res.passed_qc),
+            marker_source=res.marker_source,
+        ))
+    act_ids = list(conn.execute(
+        actuations.insert().returning(actuations.c.id, sort_by_parameter_order=True), act_rows).scalars())
+    qc_rows, ev_rows, flag_rows = [], [], []
+    by_model: dict = {}
+    for it, actuation_id in zip(keep, act_ids):
+        res = it.result
+        for q in res.qc:
+            qc_rows.append(dict(recording_id=it.recording_id, check_name=q.check, value=num(q.value),
+                                limit_value=num(q.limit), passed=bool(q.passed), detail=q.detail))
+            if not q.passed:
+                flag_rows.append(dict(
+                    actuation_id=actuation_id, model_id=None, event=None, statistic=f"qc:{q.check}",
+                    value=num(q.value), limit_value=num(q.limit),
+                    reason=f"recording failed its {q.check} check: {q.detail}", created_at=now))
+        for ev in res.events:
+            ev_rows.append(_event_row(actuation_id, ev, res.features.get(ev.name)))
+        for event, (model_id, rows) in it.scored.items():
+            by_model.setdefault((model_id, event), []).append((actuation_id, rows))
+    conn.execute(qc_results.insert(), qc_rows)
+    if ev_rows:
+        conn.execute(events.insert(), ev_rows)
+    if flag_rows:
+        conn.execute(flags.insert(), flag_rows)
+    for (model_id, event), scored in by_model.items():
+        insert_scores(conn, model_id, event, scored)
+    got = dict(zip((it.recording_id for it in keep), act_ids))
+    return [got.get(it.recording_id) for it in items]
+
+
+def _event_row(actuation_id, ev, f) -> dict:
+    row = dict(
+        actuation_id=actuation_id, name=ev.name, found=bool(ev.found), onset_s=num(ev.onset_s),
+        end_s=num(ev.end_s), duration_s=num(ev.duration_s), peak_dbfs=num(ev.peak_dbfs),
+        latency_s=num(ev.latency_s), method=ev.method, reason=ev.reason or None,
+        dominant_hz=None, centroid_hz=None, band_energy_db=None, padded_slices=None, level_reference=None,
+        n_slices=None, n_bands=None, levels_f32=None, slice_times_f64=None, band_centres_f64=None,
+    )
+    if f is not None:
+        row.update(
+            dominant_hz=num(f.dominant_hz), centroid_hz=num(f.centroid_hz), band_energy_db=num(f.band_energy_db),
+            padded_slices=int(f.padded_slices), level_reference=f.reference, n_slices=int(f.levels_db.shape[0]),
+            n_bands=int(f.levels_db.shape[1]), levels_f32=f32(f.levels_db), slice_times_f64=f64(f.slice_times_s),
+            band_centres_f64=f64(f.band_centres_hz),
+        )
+    return row
+
+
+def insert_scores(conn, model_id, event, items) -> None:
+    """items: [(actuation_id, (trajectory row, [flag rows]))] as made by analysis.store.reference.score_rows."""
+    now = utc_now()
+    traj, fl = [], []
+    for actuation_id, (t_row, f_rows) in items:
+        traj.append(dict(t_row, actuation_id=actuation_id, event=event, model_id=model_id))
+        fl.extend(dict(f, actuation_id=actuation_id, event=event, model_id=model_id, created_at=now) for f in f_rows)
+    if traj:
+        conn.execute(trajectories.insert(), traj)
+    if fl:
+        conn.execute(flags.insert(), fl)
+
+
+# ------------------------------------------------------------------------------------------------------ models
+def insert_model(conn, *, profile, event, model_json: str, model_npz: bytes, meta: dict, model, created_by,
+                 activate: bool = True) -> tuple[int, int]:
+    """Store a fitted model as the next version of (profile, event); returns (model_id, version)."""
+    version = (conn.execute(select(func.max(reference_models.c.version)).where(
+        and_(reference_models.c.profile == profile, reference_models.c.event == event))).scalar() or 0) + 1
+    now = utc_now()
+    if activate:
+        conn.execute(reference_models.update().where(and_(
+            reference_models.c.profile == profile, reference_models.c.event == event,
+            reference_models.c.status == "active")).values(status="retired"))
+    model_id = conn.execute(reference_models.insert().values(
+        profile=profile, event=event, version=version, status="active" if activate else "retired",
+        reference_lots=json.dumps(list(meta.get("reference_lots", []))),
+        parameters=json.dumps(model.get_params()), n_recordings=int(meta.get("n_recordings", 0)),
+        n_components=int(model.n_components_), t2_limit=num(model.t2_limit_), spe_limit=num(model.spe_limit_),
+        created_by=created_by, created_at=now, model_json=model_json, model_npz=model_npz,
+    ).returning(reference_models.c.id)).scalar_one()
+    audit(conn, person=created_by, action="reference.build", target=f"model {model_id}",
+          detail={"profile": profile, "event": event, "version": version, "active": activate,
+                  "reference_lots": list(meta.get("reference_lots", [])), "n_recordings": meta.get("n_recordings"),
+                  "n_components": int(model.n_components_)})
+    return model_id, version
+
+
+def activate_model(conn, model_id, *, person, where):
+    row = conn.execute(select(reference_models.c.profile, reference_models.c.event, reference_models.c.version)
+                       .where(reference_models.c.id == model_id)).first()
+    if row is None:
+        raise StoreError(f"{where}: no reference model with id {model_id}")
+    conn.execute(reference_models.update().where(and_(
+        reference_models.c.profile == row.profile, reference_models.c.event == row.event,
+        reference_models.c.status == "active")).values(status="retired"))
+    conn.execute(reference_models.update().where(reference_models.c.id == model_id).values(status="active"))
+    audit(conn, person=person, action="reference.activate", target=f"model {model_id}",
+          detail={"profile": row.profile, "event": row.event, "version": row.version})
+
+
+# ---------------------------------------------------------------------------------------------------- verdicts
+def add_verdict(conn, flag_id, *, person, verdict, note, where) -> int:
+    if verdict not in VERDICTS:
+        raise StoreError(f"verdict must be one of {', '.join(map(repr, VERDICTS))}; got {verdict!r}")
+    if not str(person).strip():
+        raise StoreError("a verdict needs the name of the person who gives it; got an empty name")
+    if conn.execute(select(flags.c.id).where(flags.c.id == flag_id)).first() is None:
+        raise StoreError(f"{where}: no flag with id {flag_id}")
+    vid = conn.execute(verdicts.insert().values(
+        flag_id=flag_id, person=person, verdict=verdict, note=note or None, created_at=utc_now(),
+    ).returning(verdicts.c.id)).scalar_one()
+    audit(conn, person=person, action="verdict.add", target=f"flag {flag_id}",
+          detail={"verdict": verdict, "note": note or ""})
+    return vid
+
+
+def audit(conn, *, person, action, target="", detail=None):
+    conn.execute(audit_log.insert().values(
+        at=utc_now(), person=person, action=action, target=target,
+        detail=json.dumps(detail or {}, ensure_ascii=False, default=str),
+    ))

@@ -1,0 +1,438 @@
+"""The worker: inbox -> analysis -> store, with the original kept in the archive or the quarantine.
+
+Per recording: hash the audio (SHA-256) and claim it in the store (the same content again, under any name, is a
+no-op); analyse it in a process pool; copy the original and its sidecar into the content-addressed archive
+(or, if it cannot be analysed, into the quarantine); commit every result of the recording in one transaction;
+only then remove the inbox copy. A worker killed at any instant leaves at most a claim (taken up again once older
+than the claim timeout) and an archive copy that the next attempt finds in place; never a half-written recording.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import shutil
+import socket
+import sys
+import time
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from dataclasses import dataclass, field
+from multiprocessing import get_context
+from pathlib import Path
+from typing import Callable, Iterable, Iterator
+
+from .errors import AnalysisError
+from .io import sidecar_path
+from .scoring import AUDIO_SUFFIXES
+
+__all__ = ["IngestSummary", "ingest_paths", "run_worker", "process_files", "find_inbox_files", "content_hash",
+           "DEFAULT_CLAIM_TIMEOUT_S"]
+
+#: A claim older than this is taken to belong to a dead worker (analysis of one recording takes well under 1 s).
+DEFAULT_CLAIM_TIMEOUT_S = 300.0
+#: In polling mode a file younger than this may still be being written: wait for the next poll.
+DEFAULT_SETTLE_S = 2.0
+
+
+@dataclass
+class IngestSummary:
+    """Counts of one pass: analysed, quarantined, duplicates (already stored), busy (claimed by another worker),
+    lost (claim taken over by another worker while analysing), vanished (file gone before it was read)."""
+
+    analysed: int = 0
+    quarantined: int = 0
+    duplicates: int = 0
+    busy: int = 0
+    lost: int = 0
+    vanished: int = 0
+    elapsed_s: float = 0.0
+    errors: list = field(default_factory=list)  # (file, reason) of quarantined files
+
+    @property
+    def seen(self) -> int:
+        return self.analysed + self.quarantined + self.duplicates + self.busy + self.lost + self.vanished
+
+    def __str__(self):
+        rate = self.analysed / self.elapsed_s if self.elapsed_s > 0 else 0.0
+        return (f"{self.analysed} analysed, {self.quarantined} quarantined, {self.duplicates} already stored, "
+                f"{self.busy} claimed by another worker in {self.elapsed_s:.1f} s ({rate:.1f} recordings/s)")
+
+
+def content_hash(path: Path) -> tuple[str, int]:
+    """(SHA-256 hex of the file's bytes, size in bytes)."""
+    h = hashlib.sha256()
+    size = 0
+    with open(path, "rb") as f:
+        while chunk := f.read(1 << 20):
+            h.update(chunk)
+            size += len(chunk)
+    return h.hexdigest(), size
+
+
+def find_inbox_files(inbox: Path, *, settle_s: float = 0.0) -> list[Path]:
+    """Recordings in the inbox tree, oldest name first; hidden files (partial uploads) and files modified in the
+    last ``settle_s`` seconds are left for later."""
+    now = time.time()
+    out = []
+    for p in sorted(inbox.rglob("*")):
+        if p.suffix.lower() not in AUDIO_SUFFIXES or p.name.startswith(".") or not p.is_file():
+            continue
+        if settle_s > 0:
+            try:
+                if now - p.stat().st_mtime < settle_s:
+                    continue
+            except FileNotFoundError:
+                continue
+        out.append(p)
+    return out
+
+
+def _analyse_task(path: str, profile_dirs: tuple[str, ...]):
+    """Runs in a pool process: (result, None) or (None, reason). Never raises, so one bad file stops nothing."""
+    from .pipeline import analyse_file
+
+    try:
+        return analyse_file(path, profile_dirs=profile_dirs), None
+    except AnalysisError as exc:
+        return None, str(exc)
+    except Exception as exc:  # a bug must not stop the worker: the file goes to quarantine with the error
+        return None, f"{path}: unexpected error while analysing: {type(exc).__name__}: {exc}"
+
+
+def _place(src: Path, dest: Path, *, content_addressed: bool = True) -> None:
+    """Copy ``src`` to ``dest`` atomically (temporary name, then rename). Under a content-addressed name an
+    equal-size file already there is the same content (only whole files get that name) and stays."""
+    dest.parent.mkdir(parents=True, exist_ok=True)
+    if content_addressed and dest.exists() and dest.stat().st_size == src.stat().st_size:
+        return
+    tmp = dest.with_name(f".{dest.name}.{os.getpid()}.tmp")
+    shutil.copyfile(src, tmp)
+    os.replace(tmp, dest)
+
+
+def _remove_source(path: Path, root: Path | None) -> None:
+    for p in (path, sidecar_path(path)):
+        try:
+            p.unlink()
+        except FileNotFoundError:
+            pass
+    if root is None:
+        return
+    parent = path.parent
+    while parent != root and root in parent.parents:
+        try:
+            parent.rmdir()  # only if empty
+        except OSError:
+            break
+        parent = parent.parent
+
+
+class _Progress:
+    def __init__(self, total: int | None, enabled: bool, log: Callable[[str], None]):
+        self.bar = None
+        self.log = log
+        if enabled:
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, unit="rec", file=sys.stderr, dynamic_ncols=True)
+
+    def line(self, msg: str) -> None:
+        if self.bar is None:
+            self.log(msg)
+
+    def step(self) -> None:
+        if self.bar is not None:
+            self.bar.update(1)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+
+
+def process_files(
+    store, files: Iterable[tuple[Path, str]], *, jobs: int = 1, pool=None, worker_id: str | None = None,
+    remove_source: bool = False, inbox_root: Path | None = None, claim_timeout_s: float = DEFAULT_CLAIM_TIMEOUT_S,
+    profile_dirs: Iterable[str | Path] = (), log: Callable[[str], None] = lambda msg: None,
+    progress: bool | None = None, total: int | None = None, batch_size: int = 16, batch_wait_s: float = 1.0,
+) -> IngestSummary:
+    """Register, analyse, archive (or quarantine) and store each (path, original name) of ``files``.
+
+    ``pool``: a ProcessPoolExecutor to analyse in (else one is made when ``jobs`` > 1, or analysis runs in this
+    process). ``remove_source``: delete each delivered file (and its sidecar) once its outcome is committed.
+    Analysed recordings are committed in batches of up to ``batch_size`` (each recording whole; a batch waits at
+    most ``batch_wait_s`` for more), so the store sees few, larger transactions.
+    """
+    from .store import Claim, StoreError
+    from .store.reference import score_result
+    from .store.writes import Analysed
+
+    worker_id = worker_id or f"{socket.gethostname()}:{os.getpid()}"
+    dirs = tuple(str(d) for d in profile_dirs)
+    summary = IngestSummary()
+    t0 = time.perf_counter()
+    show = sys.stderr.isatty() if progress is None else progress
+    bar = _Progress(total, show, log)
+    models: dict[str, dict] = {}  # profile -> active models, read once per pass
+
+    buffer: list = []  # (Analysed, path, name, hash): archived and scored, waiting for the next batch commit
+    buffered_since = [0.0]
+
+    def commit(entries) -> None:
+        try:
+            ids = store.commit_analyses([e[0] for e in entries], worker=worker_id)
+        except StoreError as exc:
+            if len(entries) > 1:  # find the recording the store refuses; the others go in
+                for e in entries:
+                    commit([e])
+                return
+            item, path, name, h = entries[0]
+            to_quarantine(path, name, item.recording_id, h, f"{name}: analysed but could not be stored: {exc}")
+            return
+        for (item, path, name, _), actuation_id in zip(entries, ids):
+            if actuation_id is None:
+                summary.lost += 1
+                bar.line(f"lost       {name}: another worker took over its claim")
+                continue
+            summary.analysed += 1
+            flagged = any(rows[1] for _, rows in item.scored.values()) or not item.result.passed_qc
+            bar.line(f"analysed   {name} -> actuation {actuation_id}"
+                     + (" (flagged)" if flagged else "") + ("" if item.scored else " (no active model)"))
+            if remove_source:
+                _remove_source(path, inbox_root)
+
+    def flush() -> None:
+        if buffer:
+            commit(list(buffer))
+            buffer.clear()
+
+    def vanished(recording_id, name, exc) -> None:
+        summary.vanished += 1
+        store.release_claim(recording_id, worker=worker_id)
+        bar.line(f"vanished   {name}: {exc.strerror}")
+
+    def finish(path: Path, name: str, claim, outcome) -> None:
+        result, reason = outcome
+        h = claim_hash[path]
+        if result is None:
+            to_quarantine(path, name, claim.recording_id, h, reason)
+            return
+        try:
+            archive = store.archive_dir / h[:2] / (h + path.suffix.lower())
+            _place(path, archive)
+            side = sidecar_path(path)
+            if side.exists():
+                _place(side, archive.with_suffix(".json"), content_addressed=False)
+        except FileNotFoundError as exc:
+            vanished(claim.recording_id, name, exc)
+            return
+        try:
+            if result.sidecar is None:
+                raise AnalysisError(f"{result.path}: no sidecar, so no site, rig, lot or unit to store")
+            if result.profile not in models:
+                models[result.profile] = store.active_models(result.profile)
+            scored = score_result(result, models[result.profile])
+        except AnalysisError as exc:
+            to_quarantine(path, name, claim.recording_id, h, f"{name}: analysed but could not be scored: {exc}")
+            return
+        if not buffer:
+            buffered_since[0] = time.monotonic()
+        buffer.append((Analysed(claim.recording_id, result, str(archive), scored), path, name, h))
+        if len(buffer) >= batch_size or time.monotonic() - buffered_since[0] > batch_wait_s:
+            flush()
+
+    def to_quarantine(path: Path, name: str, recording_id: int, h: str, reason: str) -> None:
+        """Keep the file as delivered (a hash prefix keeps equal names apart) and commit its reason."""
+        qdir = store.quarantine_dir
+        kept = qdir / f"{h[:12]}-{path.name}"
+        side = sidecar_path(path)
+        sidecar_text = None
+        try:
+            _place(path, kept)
+            if side.exists():
+                _place(side, qdir / f"{h[:12]}-{side.name}", content_addressed=False)
+                sidecar_text = side.read_text(encoding="utf-8", errors="replace")[:100_000]
+        except FileNotFoundError as exc:
+            vanished(recording_id, name, exc)
+            return
+        if not store.commit_quarantine(recording_id, worker=worker_id, reason=reason, quarantine_path=str(kept),
+                                       sidecar_json=sidecar_text):
+            summary.lost += 1
+            return
+        summary.quarantined += 1
+        summary.errors.append((name, reason))
+        bar.line(f"quarantined {name}: {reason}")
+        if remove_source:
+            _remove_source(path, inbox_root)
+
+    claim_hash: dict[Path, str] = {}
+    own_pool = None
+    if pool is None and jobs > 1:
+        own_pool = pool = make_pool(jobs)
+    pending: dict = {}
+    window = max(2, 2 * jobs)
+    try:
+        for chunk in _chunks(files, batch_size):
+            hashed = []
+            for path, name in chunk:
+                path = Path(path)
+                try:
+                    h, size = content_hash(path)
+                except FileNotFoundError:
+                    summary.vanished += 1
+                    continue
+                hashed.append((path, name, h, size))
+            claims = store.claim_many([(h, name, size) for _, name, h, size in hashed], worker=worker_id,
+                                      claim_timeout_s=claim_timeout_s)
+            for (path, name, h, _), claim in zip(hashed, claims):
+                if claim.kind == "duplicate" and claim.status == "quarantined":
+                    side = sidecar_path(path)
+                    text = side.read_text(encoding="utf-8", errors="replace")[:100_000] if side.exists() else None
+                    if store.reopen_quarantined(claim.recording_id, worker=worker_id, sidecar_text=text):
+                        claim = Claim("retry", claim.recording_id, "claimed", name)
+                        bar.line(f"retry      {name}: was quarantined, delivered again with another sidecar")
+                if claim.kind == "duplicate":
+                    summary.duplicates += 1
+                    bar.line(f"duplicate  {name}: same content as recording {claim.recording_id} "
+                             f"({claim.original_name}, {claim.status})")
+                    if remove_source:
+                        _remove_source(path, inbox_root)
+                    bar.step()
+                    continue
+                if claim.kind == "busy":
+                    summary.busy += 1
+                    bar.step()
+                    continue
+                claim_hash[path] = h
+                if pool is None:
+                    finish(path, name, claim, _analyse_task(str(path), dirs))
+                    claim_hash.pop(path, None)
+                    bar.step()
+                    continue
+                pending[pool.submit(_analyse_task, str(path), dirs)] = (path, name, claim)
+                while len(pending) >= window:
+                    done, _ = wait(pending, return_when=FIRST_COMPLETED)
+                    for fut in done:
+                        p, n, c = pending.pop(fut)
+                        finish(p, n, c, fut.result())
+                        claim_hash.pop(p, None)
+                        bar.step()
+        while pending:
+            done, _ = wait(pending, return_when=FIRST_COMPLETED)
+            for fut in done:
+                p, n, c = pending.pop(fut)
+                finish(p, n, c, fut.result())
+                claim_hash.pop(p, None)
+                bar.step()
+        flush()
+    except KeyboardInterrupt:
+        flush()  # what is analysed is kept; claims of the rest are taken up again after the claim timeout
+        raise
+    finally:
+        bar.close()
+        if own_pool is not None:
+            own_pool.shutdown(cancel_futures=True)
+    summary.elapsed_s = time.perf_counter() - t0
+    return summary
+
+
+def _chunks(items, n: int):
+    chunk = []
+    for item in items:
+        chunk.append(item)
+        if len(chunk) >= n:
+            yield chunk
+            chunk = []
+    if chunk:
+        yield chunk
+
+
+def _noop():
+    return None
+
+
+def make_pool(jobs: int) -> ProcessPoolExecutor:
+    """A started pool of ``jobs`` analysis processes.
+
+    Forked (children inherit the imported analysis modules: starting a fresh interpreter costs seconds of
+    imports per process). Make it before opening a store, so no database connection is copied into a child;
+    fork starts every process at the first submit, which happens here.
+    """
+    pool = ProcessPoolExecutor(max_workers=jobs, mp_context=get_context("fork"))
+    pool.submit(_noop).result()
+    return pool
+
+
+def _expand(paths: Iterable[str | Path]) -> Iterator[tuple[Path, str]]:
+    """(file, original name): a file given directly is named by its file name, one found in a folder by its path
+    relative to that folder."""
+    for p in map(Path, paths):
+        if p.is_dir():
+            for f in find_inbox_files(p):
+                yield f, f.relative_to(p).as_posix()
+        elif p.is_file():
+            yield p, p.name
+        else:
+            raise AnalysisError(f"{p}: no such file or folder")
+
+
+def ingest_paths(paths: Iterable[str | Path], store_url=None, jobs: int | None = None, *,
+                 profile_dirs: Iterable[str | Path] = (), files_dir=None, claim_timeout_s=DEFAULT_CLAIM_TIMEOUT_S,
+                 log: Callable[[str], None] = lambda msg: None, progress: bool | None = None) -> IngestSummary:
+    """Ingest recordings named directly or found in folders into the store at ``store_url`` (default harken.db
+    in the working folder) once. The given files stay where they are; the archive keeps its own copies."""
+    from .store import Store
+
+    files = list(_expand(paths))
+    jobs = _jobs(jobs)
+    pool = make_pool(jobs) if jobs > 1 and len(files) > 1 else None
+    try:
+        with Store.open(store_url, files_dir=files_dir) as store:
+            return process_files(store, files, jobs=jobs, pool=pool, remove_source=False,
+                                 claim_timeout_s=claim_timeout_s, profile_dirs=profile_dirs, log=log,
+                                 progress=progress, total=len(files))
+    finally:
+        if pool is not None:
+            pool.shutdown(cancel_futures=True)
+
+
+def _jobs(jobs: int | None) -> int:
+    return max(1, int(jobs or os.cpu_count() or 1))
+
+
+def run_worker(inbox: str | Path, store_url=None, *, once: bool = False, jobs: int | None = None,
+               interval_s: float = 5.0, claim_timeout_s: float = DEFAULT_CLAIM_TIMEOUT_S,
+               settle_s: float | None = None, profile_dirs: Iterable[str | Path] = (), files_dir=None,
+               log: Callable[[str], None] = lambda msg: None, progress: bool | None = None) -> IngestSummary:
+    """Process the inbox: with ``once``, what is there now, then return; else poll every ``interval_s`` seconds
+    until interrupted (KeyboardInterrupt propagates once the recordings already analysed are committed)."""
+    from .store import Store
+
+    inbox = Path(inbox)
+    if not inbox.is_dir():
+        raise AnalysisError(f"{inbox}: inbox folder does not exist")
+    jobs = _jobs(jobs)
+    settle = (0.0 if once else DEFAULT_SETTLE_S) if settle_s is None else settle_s
+    total = IngestSummary()
+    worker_id = f"{socket.gethostname()}:{os.getpid()}"
+    pool = make_pool(jobs) if jobs > 1 else None
+    with Store.open(store_url, files_dir=files_dir) as store:
+        try:
+            while True:
+                files = find_inbox_files(inbox, settle_s=settle)
+                if files:
+                    s = process_files(store, ((f, f.relative_to(inbox).as_posix()) for f in files), jobs=jobs,
+                                      pool=pool, worker_id=worker_id, remove_source=True, inbox_root=inbox,
+                                      claim_timeout_s=claim_timeout_s, profile_dirs=profile_dirs, log=log,
+                                      progress=progress, total=len(files))
+                    for k in ("analysed", "quarantined", "duplicates", "busy", "lost", "vanished"):
+                        setattr(total, k, getattr(total, k) + getattr(s, k))
+                    total.elapsed_s += s.elapsed_s
+                    total.errors += s.errors
+                    if not once:
+                        log(f"pass: {s}")
+                if once:
+                    return total
+                time.sleep(interval_s)
+        finally:
+            if pool is not None:
+                pool.shutdown(cancel_futures=True)
