@@ -30,11 +30,16 @@ def _generated_already(inbox: Path, key: dict) -> bool:
 
 
 def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: int | None = None, echo=print):
-    """Run the whole demo into the folder ``out``; returns the per-recording results table."""
+    """Run the whole demo into the folder ``out``; returns the per-actuation results table.
+
+    Generate the scenario into ``out/inbox`` (reused when already there), ingest it with the worker into the
+    store ``out/harken.db`` (archive and quarantine beside it), build the reference models from the scenario's
+    reference lots (which scores every stored actuation), and summarise what the store holds against the
+    generator's ground truth.
+    """
     from .demo import generate
-    from .modelfile import save_model
-    from .profiles import load_profile
-    from .scoring import analyse_many, feature_set, fit_event_model, monitor_result
+    from .store import Store, build_reference
+    from .worker import ingest_paths
 
     out = Path(out)
     inbox = out / "inbox"
@@ -55,56 +60,42 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
         echo(f"  {describe_generation(summary)} in {time.perf_counter() - t0:.1f} s")
 
     truth = pd.read_csv(inbox / "ground_truth.csv")
+    truth["reference"] = truth["reference"].astype(str).str.lower().isin(["true", "1"])
     profiles = sorted(set(json.loads((inbox / Path(f).with_suffix(".json")).read_text())["profile"]
                           for f in truth["file"].head(20)))
     if len(profiles) != 1:
         raise AnalysisError(f"{inbox}: the demo expects one device profile, found {profiles}")
-    profile = load_profile(profiles[0])
 
+    # A fresh store each run, so the summary is this run's.
+    db = out / "harken.db"
+    for leftover in (db, out / "harken.db-wal", out / "harken.db-shm", out / "harken-archive",
+                     out / "harken-quarantine"):
+        if leftover.is_dir():
+            shutil.rmtree(leftover)
+        elif leftover.exists():
+            leftover.unlink()
+    store_url = f"sqlite:///{db.resolve()}"
     t1 = time.perf_counter()
-    files = [inbox / f for f in truth["file"]]
-    results = analyse_many(files, profile=profile, jobs=jobs)
-    echo(f"analysed {len(files)} recordings in {time.perf_counter() - t1:.1f} s")
+    ingested = ingest_paths([inbox], store_url, jobs=jobs, progress=False)
+    echo(f"ingested {ingested.analysed} recordings into {db} ({ingested.quarantined} quarantined) in "
+         f"{time.perf_counter() - t1:.1f} s")
 
-    ref_mask = truth["reference"].astype(str).str.lower().isin(["true", "1"]).to_numpy()
-    ref_results = [r for r, m in zip(results, ref_mask) if m]
-    models = {}
-    model_dir = out / "models"
-    model_dir.mkdir(parents=True, exist_ok=True)
-    for event in profile.event_names:
-        fs = feature_set(ref_results, event)
-        # split the nominal 1 % across the events so a whole actuation keeps it (Bonferroni)
-        model, meta = fit_event_model(fs, profile=profile, alpha=0.01 / len(profile.event_names))
-        save_model(model, model_dir / event, metadata=meta)
-        models[event] = model
-        lots = ", ".join(sorted(set(fs.lots)))
-        echo(f"reference model {event}: {model.n_components_} components from {len(fs.paths)} actuations of "
-             f"lots {lots} ({len(fs.excluded)} left out) -> {model_dir / event}.json")
+    ref_lots = sorted(set(truth.loc[truth["reference"], "lot"]))
+    with Store.open(store_url) as store:
+        for info in build_reference(store, profiles[0], None, ref_lots, created_by="harken demo"):
+            echo(f"reference model {info.event}: version {info.version}, {info.n_components} components, "
+                 f"from lots {', '.join(ref_lots)}")
+        exported = store.export_actuations()
+        levels = store.band_levels(profiles[0], "dose_release")
+        event_names = list(dict.fromkeys(store.models()["event"]))
 
-    rows = []
-    for (path, res, err), truth_row in zip(results, truth.itertuples(index=False)):
-        row = {
-            "file": truth_row.file, "site": truth_row.site, "rig": truth_row.rig, "lot": truth_row.lot,
-            "unit": truth_row.unit, "actuation": truth_row.actuation, "condition": truth_row.condition,
-            "reference": bool(str(truth_row.reference).lower() in ("true", "1")),
-            "recorded_at": truth_row.recorded_at,
-        }
-        if res is None:
-            row.update(analysed=False, qc_failed="", flagged=True, reasons=err)
-        else:
-            mon = monitor_result(res, models)
-            reasons = []
-            for event, m in mon.items():
-                reasons += [f"{event}: {r}" for r in m["reasons"]]
-                for k in ("t2_ratio", "spe_ratio", "trajectory_distance", "event_spe_ratio"):
-                    row[f"{event}.{k}"] = m.get(k)
-            row.update(analysed=True, qc_failed=",".join(res.failed_checks),
-                       flagged=any(m["flagged"] for m in mon.values()), reasons=" | ".join(dict.fromkeys(reasons)))
-        rows.append(row)
-    table = pd.DataFrame(rows)
-    calibration = carrier_calibration(results, truth, event="dose_release")
+    # The store keeps each file's name relative to the folder it was ingested from: the ground truth's `file`.
+    table = exported.merge(truth[["file", "condition", "reference"]], on="file", how="inner", validate="one_to_one")
+    if len(table) != len(truth):
+        raise AnalysisError(f"{db}: the store holds {len(table)} of the scenario's {len(truth)} recordings")
+    calibration = carrier_calibration(levels, truth, event="dose_release")
     if calibration is not None:
-        table["dose_release.predicted_carrier_d50_um"] = calibration.pop("predictions")
+        table = table.merge(calibration.pop("predictions"), on="file", how="left")
     table.to_csv(out / "results.csv", index=False)
 
     echo("")
@@ -118,16 +109,18 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
     ref = table[table["reference"]]
     echo(f"  {'(reference lots)':<16} {int(ref['flagged'].sum()):>5} of {len(ref):>5} flagged "
          f"({100 * ref['flagged'].mean():.1f} %; in-sample)")
+    if ingested.quarantined:
+        echo(f"  quarantined: {ingested.quarantined} (harken export quarantine --store {store_url})")
     echo("")
-    echo("flagged actuations per rig (rows) and lot (columns):")
+    echo("flagged actuations per rig (rows) and lot (columns), from the store:")
     pivot = table.pivot_table(index="rig", columns="lot", values="flagged", aggfunc="sum", fill_value=0)
     echo(pivot.astype(int).to_string())
     echo("")
-    for event in profile.event_names:
+    for event in event_names:
         for line in lot_chart_summary(table, event):
             echo(line)
     echo("")
-    for line in unit_summary(table, profile.event_names):
+    for line in unit_summary(table, event_names):
         echo(line)
     if calibration is not None:
         echo("")
@@ -137,7 +130,7 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
         for lot, pred, true in calibration["by_lot"]:
             echo(f"  lot {lot}: predicted {pred:6.2f} µm, measured {true:6.2f} µm")
     echo("")
-    echo(f"results per actuation: {out / 'results.csv'}; models: {model_dir}")
+    echo(f"store: {store_url}; results per actuation: {out / 'results.csv'}")
     echo(f"demo finished in {time.perf_counter() - t0:.1f} s")
     return table
 
@@ -244,36 +237,34 @@ def unit_summary(table: pd.DataFrame, events) -> list[str]:
     return lines
 
 
-def carrier_calibration(results, truth: pd.DataFrame, *, event: str, max_components: int = 6):
-    """PLS1 from an event's mean band levels to the carrier particle size of each actuation's lot.
+def carrier_calibration(levels: pd.DataFrame, truth: pd.DataFrame, *, event: str, max_components: int = 6):
+    """PLS1 from an event's mean band levels (``levels``: the store's band_levels table) to the carrier
+    particle size of each actuation's lot.
 
     In a lab the size would come from the lot's certificate (laser diffraction); here from the generator's ground
-    truth (``carrier_d50_um``). Components are chosen by the leave-one-lot-out RMSE (Wold's cross-validation of
-    PLS, folds by whole lots so no lot predicts itself). Returns None when the column or the event is absent;
-    else a dict with held-out ``predictions`` per recording (NaN where none), ``rmsecv``, ``n_components`` and
+    truth (``carrier_d50_um``). Components are chosen by the leave-one-lot-out RMSE (folds by whole lots, so no
+    lot predicts itself). Returns None when the column or the levels are missing; else a dict with the held-out
+    ``predictions`` (a table: file, <event>.predicted_carrier_d50_um), ``rmsecv``, ``n_components`` and
     ``by_lot`` (lot, mean held-out prediction, measured size).
     """
     from .monitor import PLS1, cross_validate
 
-    if "carrier_d50_um" not in truth:
+    if "carrier_d50_um" not in truth or levels is None or not len(levels):
         return None
-    keep = [i for i, (_, res, _) in enumerate(results)
-            if res is not None and res.passed_qc and event in res.features]
-    if len(keep) < 10:
+    names = truth.set_index("file")
+    rows = levels[levels["levels"].notna() & levels["file"].isin(names.index)]
+    if len(rows) < 10 or rows["lot"].nunique() < 3:
         return None
-    x = np.stack([results[i][1].features[event].levels_db.mean(axis=0) for i in keep])
-    y = truth["carrier_d50_um"].to_numpy(dtype=float)[keep]
-    lots = truth["lot"].to_numpy()[keep]
-    if len(set(lots)) < 3:
-        return None
+    x = np.stack([np.asarray(v, dtype=float).mean(axis=0) for v in rows["levels"]])
+    y = names.loc[rows["file"], "carrier_d50_um"].to_numpy(dtype=float)
+    lots = rows["lot"].to_numpy()
     best = None
     for a in range(1, min(max_components, x.shape[1] - 1) + 1):
         cv = cross_validate(PLS1(n_components=a), x, y, groups=lots)
         if best is None or cv.rmse < best[1].rmse * 0.98:  # a component must earn 2 % to be kept
             best = (a, cv)
     a, cv = best
-    predictions = np.full(len(truth), np.nan)
-    predictions[keep] = cv.predictions
+    predictions = pd.DataFrame({"file": rows["file"].to_numpy(), f"{event}.predicted_carrier_d50_um": cv.predictions})
     frame = pd.DataFrame({"lot": lots, "pred": cv.predictions, "true": y})
     by_lot = [(lot, float(g["pred"].mean()), float(g["true"].mean())) for lot, g in frame.groupby("lot", sort=False)]
     return {"predictions": predictions, "rmsecv": cv.rmse, "n_components": a, "y_min": float(y.min()),

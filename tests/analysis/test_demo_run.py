@@ -12,7 +12,12 @@ def test_demo_runs_end_to_end_and_flags_every_recording_fault(tmp_path):
     lines = []
     table = run_demo(tmp_path, scenario="small", jobs=2, echo=lines.append)
     assert (tmp_path / "results.csv").exists()
-    assert sorted(p.name for p in (tmp_path / "models").glob("*.json")) == ["dose_release.json", "metering_click.json"]
+    from analysis.store import Store
+
+    with Store.open(f"sqlite:///{tmp_path / 'harken.db'}") as store:
+        models = store.models()
+        assert sorted(models.loc[models["status"] == "active", "event"]) == ["dose_release", "metering_click"]
+        assert len(store.recordings()) == 120
     truth = pd.read_csv(tmp_path / "inbox" / "ground_truth.csv")
     assert len(table) == len(truth)
     for condition in ("clipping", "dropout", "missing_marker"):
@@ -30,6 +35,7 @@ def test_demo_runs_end_to_end_and_flags_every_recording_fault(tmp_path):
     again = []
     run_demo(tmp_path, scenario="small", jobs=2, echo=again.append)
     assert again[0].startswith("using the recordings already generated")
+    assert any(line.startswith("ingested 120 recordings") for line in again)  # a fresh store each run
 
 
 def _table(rng, lots, rigs, shift_lot=None, shift_rig=None, per=8):
