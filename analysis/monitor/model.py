@@ -619,17 +619,3 @@ class ReferenceModel:
             raise ModelError(f"{source}: reference model is incomplete or damaged ({exc!r})") from exc
         model.metadata_ = doc.get("metadata", {})
         return model
-
-    # Kept for callers written against the first version; they delegate to analysis.modelfile (files live there).
-    def save(self, path, *, metadata=None):
-        """Write <path>.json and <path>.npz (see analysis.modelfile.save_model)."""
-        from analysis.modelfile import save_model
-
-        return save_model(self, path, metadata=metadata)
-
-    @classmethod
-    def load(cls, path):
-        """Read a model written by save() (see analysis.modelfile.load_model)."""
-        from analysis.modelfile import load_model
-
-        return load_model(path)
