@@ -99,26 +99,34 @@ def _open_error(path: Path, exc: Exception) -> AudioError:
     return AudioError(path, f"not a readable audio file ({text})")
 
 
+def _info_from(handle: sf.SoundFile, path: Path, size: int) -> AudioInfo:
+    if handle.samplerate <= 0 or handle.channels <= 0:
+        raise AudioError(path, f"header is invalid (sample rate {handle.samplerate}, channels {handle.channels})")
+    return AudioInfo(
+        path=str(path),
+        sample_rate_hz=int(handle.samplerate),
+        channels=int(handle.channels),
+        frames=int(handle.frames),
+        duration_s=float(handle.frames) / float(handle.samplerate),
+        format=str(handle.format),
+        subtype=str(handle.subtype),
+        size_bytes=int(size),
+    )
+
+
+def _open(path: Path) -> sf.SoundFile:
+    try:
+        return sf.SoundFile(str(path))
+    except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
+        raise _open_error(path, exc) from None
+
+
 def audio_info(path) -> AudioInfo:
     """Read a recording's header only. Raises AudioError naming the file and the reason."""
     path = Path(path)
     size = _check_file(path)
-    try:
-        info = sf.info(str(path))
-    except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
-        raise _open_error(path, exc) from None
-    if info.samplerate <= 0 or info.channels <= 0:
-        raise AudioError(path, f"header is invalid (sample rate {info.samplerate}, channels {info.channels})")
-    return AudioInfo(
-        path=str(path),
-        sample_rate_hz=int(info.samplerate),
-        channels=int(info.channels),
-        frames=int(info.frames),
-        duration_s=float(info.frames) / float(info.samplerate),
-        format=str(info.format),
-        subtype=str(info.subtype),
-        size_bytes=int(size),
-    )
+    with _open(path) as handle:
+        return _info_from(handle, path, size)
 
 
 def read_audio(path, *, start_s: float | None = None, stop_s: float | None = None) -> Audio:
@@ -127,7 +135,13 @@ def read_audio(path, *, start_s: float | None = None, stop_s: float | None = Non
     Raises AudioError for an empty, unreadable or truncated file, and for NaN or infinite samples.
     """
     path = Path(path)
-    info = audio_info(path)
+    size = _check_file(path)
+    with _open(path) as handle:  # one open for header and samples: opening costs as much as decoding here
+        info = _info_from(handle, path, size)
+        return _decode(handle, info, path, start_s, stop_s)
+
+
+def _decode(handle: sf.SoundFile, info: AudioInfo, path: Path, start_s, stop_s) -> Audio:
     fs = info.sample_rate_hz
     first = 0 if start_s is None else int(round(float(start_s) * fs))
     last = info.frames if stop_s is None else int(round(float(stop_s) * fs))
@@ -139,10 +153,9 @@ def read_audio(path, *, start_s: float | None = None, stop_s: float | None = Non
     last = min(max(last, first), info.frames)
     wanted = last - first
     try:
-        with sf.SoundFile(str(path)) as handle:
-            if first:
-                handle.seek(first)
-            samples = handle.read(wanted, dtype="float32", always_2d=True)
+        if first:
+            handle.seek(first)
+        samples = handle.read(wanted, dtype="float32", always_2d=True)
     except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
         raise AudioError(path, f"decoding failed after the header was read ({exc}); the file may be truncated") from None
     if samples.shape[0] < wanted:

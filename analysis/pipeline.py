@@ -294,7 +294,8 @@ def analyse_file(
     Raises AudioError / SidecarError / ProfileError (all AnalysisError) naming the file and the reason.
     """
     path = Path(path)
-    info = io.audio_info(path)  # header first: a non-audio file fails before we look for its sidecar
+    audio = io.read_audio(path)  # a non-audio file fails before we look for its sidecar
+    info = audio.info
     sidecar = None
     if require_sidecar or io.sidecar_path(path).exists():
         sidecar = io.read_sidecar(io.sidecar_path(path))
@@ -309,7 +310,6 @@ def analyse_file(
             if sidecar is not None and profile == sidecar.profile:
                 raise ProfileError(sidecar.path, f"its profile {profile!r} cannot be used: {exc.reason}") from None
             raise
-    audio = io.read_audio(path)
     mic_index, marker_index, source = markers_for(audio.n_channels, profile, sidecar)
     if mic_index >= audio.n_channels:
         raise AudioError(path, f"microphone channel {mic_index} requested but the file has {audio.n_channels} channel(s)")
