@@ -1,1 +1,5 @@
-"""Harken's browser dashboard (Dash). The app factory arrives with the dashboard issue; nothing is built at import."""
+"""Harken's browser dashboard (Dash): ``create_app(store_url, *, cache_dir=None, ...)``. Nothing is built at import."""
+
+from .app import create_app
+
+__all__ = ["create_app"]

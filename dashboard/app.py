@@ -1,0 +1,199 @@
+"""The app factory: ``create_app(store_url, *, cache_dir=None, ...)`` builds one Dash app on one results store.
+
+Nothing is built at import. The store is opened without creating anything; the dashboard only reads it, except
+for building a reference model on the References view (the store's own audited write). Routing is ours (one
+``dcc.Location`` and a router callback), so several apps can live in one process (the tests build many).
+Every view keeps its selections in the address bar (``history.replaceState``, no re-render), so a copied link
+opens the same view with the same selections.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import secrets
+from dataclasses import dataclass, field
+from pathlib import Path
+from urllib.parse import parse_qs
+
+import diskcache
+import flask
+from dash import Dash, DiskcacheManager, Input, Output, State, dcc, html, no_update
+
+from analysis.store import Store
+
+from . import audio as audio_route
+from .views import VIEWS, view_for_path
+
+__all__ = ["create_app", "AppContext", "CAUTIONS", "parse_query"]
+
+ASSETS = Path(__file__).resolve().parent.parent / "assets"
+
+CAUTIONS = (
+    "Acoustic monitoring supports investigation and trending; it does not replace compendial release tests or "
+    "the site's quality system.",
+    "A verdict recorded in Harken is not a batch disposition.",
+    "Use in a regulated (GMP) setting needs the site's own computerised-system validation.",
+    "Recordings of impacts can be loud: playback starts at a low volume.",
+)
+
+#: Players start at this fraction of full volume (assets/harken.js applies it to every audio element).
+START_VOLUME = 0.2
+
+
+@dataclass
+class AppContext:
+    """What every view needs: the store, the caches and the app's settings."""
+
+    store: Store
+    cache_dir: Path
+    drill_cache: diskcache.Cache
+    refresh_s: float = 30.0
+    meeting: bool = False
+    extra: dict = field(default_factory=dict)
+
+
+def parse_query(search: str | None) -> dict:
+    """A URL query string as {key: value} (the last value of a repeated key; comma lists stay text)."""
+    q = parse_qs((search or "").lstrip("?"), keep_blank_values=False)
+    return {k: v[-1] for k, v in q.items()}
+
+
+def _secret_key(cache_dir: Path, given: str | None) -> str:
+    """A fixed key shared by every server process on the same cache folder (made once, kept in the folder)."""
+    if given:
+        return given
+    if os.environ.get("HARKEN_SECRET_KEY"):
+        return os.environ["HARKEN_SECRET_KEY"]
+    path = cache_dir / "secret_key"
+    if not path.exists():
+        tmp = path.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_text(secrets.token_hex(32))
+        try:
+            os.link(tmp, path)  # atomic: the first process to arrive wins, the others read its key
+        except FileExistsError:
+            pass
+        finally:
+            tmp.unlink(missing_ok=True)
+    return path.read_text().strip()
+
+
+def create_app(store_url=None, *, cache_dir=None, meeting: bool = False, refresh_s: float = 30.0,
+               secret_key: str | None = None, title: str = "Harken") -> Dash:
+    """A Dash app showing the results store at ``store_url`` (a SQLAlchemy URL or a SQLite file path).
+
+    cache_dir: the folder for the background-job cache and the drill-down cache, shared by all server
+    processes (default: ``<store>-dashboard-cache`` beside a SQLite store, else in the working folder).
+    meeting: start in meeting mode (large, high-contrast). refresh_s: how often Today refreshes itself.
+    """
+    store = Store.open(store_url, create=False)
+    cache_dir = Path(cache_dir) if cache_dir is not None else store.files_dir / f"{store.stem}-dashboard-cache"
+    cache_dir.mkdir(parents=True, exist_ok=True)
+    background = diskcache.Cache(str(cache_dir / "background"), size_limit=256 * 2**20)
+    drill = diskcache.Cache(str(cache_dir / "drill"), size_limit=512 * 2**20)
+    ctx = AppContext(store=store, cache_dir=cache_dir, drill_cache=drill, refresh_s=float(refresh_s),
+                     meeting=bool(meeting), extra={"store_url": store_url})
+    app = Dash(
+        __name__, title=title, assets_folder=str(ASSETS), suppress_callback_exceptions=True,
+        background_callback_manager=DiskcacheManager(background), health_endpoint="health",
+        update_title=None,
+    )
+    app.server.secret_key = _secret_key(cache_dir, secret_key)
+    app.server.config["HARKEN_CONTEXT"] = ctx
+    app.layout = _shell(ctx)
+    _register_shell(app, ctx)
+    for view in VIEWS.values():
+        view.register(app, ctx)
+    audio_route.register(app.server, ctx)
+    app.harken = ctx  # for tests and the bench: the views' context
+    return app
+
+
+def _shell(ctx: AppContext):
+    links = [dcc.Link(v.TITLE, href=v.PATH, id=f"app-nav-{name}", className="app-nav-link")
+             for name, v in VIEWS.items() if v.IN_MENU]
+    return html.Div(id="app-root", children=[
+        dcc.Location(id="app-url", refresh=False),
+        dcc.Store(id="app-meeting", data=ctx.meeting),
+        html.Header(className="app-header", children=[
+            html.Div(className="app-brand", children=[html.Span("harken", className="app-brand-name"),
+                                                     html.Span("acoustic trend review", className="app-brand-tag")]),
+            html.Nav(links, className="app-nav"),
+            dcc.Checklist(id="app-meeting-switch", options=[{"label": " Meeting mode", "value": "on"}],
+                          value=["on"] if ctx.meeting else [], className="app-meeting-switch"),
+        ]),
+        html.Main(id="app-page", className="app-page"),
+        html.Footer(className="app-footer", children=[
+            html.Span(CAUTIONS[0] + " " + CAUTIONS[1] + " "),
+            dcc.Link("More in About.", href="/about"),
+        ]),
+    ])
+
+
+def _register_shell(app: Dash, ctx: AppContext) -> None:
+    @app.callback(Output("app-page", "children"), Input("app-url", "pathname"), Input("app-url", "search"))
+    def route(pathname, search):
+        view, path_args = view_for_path(pathname or "/")
+        if view is None:
+            return html.Div(className="app-card", children=[
+                html.H2("No such page"), html.P(f"Nothing lives at {pathname}."), dcc.Link("Go to Today", href="/")])
+        return view.layout(ctx, parse_query(search), **path_args)
+
+    @app.callback(Output("app-meeting-switch", "value"), Input("app-url", "search"))
+    def meeting_from_url(search):
+        q = parse_query(search)
+        if "meeting" not in q:
+            return no_update
+        return ["on"] if q["meeting"] in ("1", "true", "on", "yes") else []
+
+    app.clientside_callback(
+        """
+        function(value) {
+            const on = Array.isArray(value) && value.indexOf('on') >= 0;
+            document.body.classList.toggle('meeting', on);
+            const p = new URLSearchParams(window.location.search);
+            if (on) { p.set('meeting', '1'); } else { p.delete('meeting'); }
+            const q = p.toString();
+            const url = window.location.pathname + (q ? '?' + q : '');
+            if (url !== window.location.pathname + window.location.search) {
+                window.history.replaceState(window.history.state, '', url);
+            }
+            return on;
+        }
+        """,
+        Output("app-meeting", "data"), Input("app-meeting-switch", "value"),
+    )
+
+
+def url_sync_script(names) -> str:
+    """The clientside function that writes a view's selections into the address bar (no re-render)."""
+    return """
+    function() {
+        const names = %s;
+        const p = new URLSearchParams();
+        for (let i = 0; i < names.length; i++) {
+            let v = arguments[i];
+            if (v === null || v === undefined || v === '' || (Array.isArray(v) && v.length === 0)) { continue; }
+            if (Array.isArray(v)) { v = v.join(','); }
+            p.set(names[i], String(v));
+        }
+        if (document.body.classList.contains('meeting')) { p.set('meeting', '1'); }
+        const q = p.toString();
+        const url = window.location.pathname + (q ? '?' + q : '');
+        if (url !== window.location.pathname + window.location.search) {
+            window.history.replaceState(window.history.state, '', url);
+        }
+        return q;
+    }
+    """ % json.dumps(list(names))
+
+
+def register_url_state(app: Dash, view_name: str, state) -> None:
+    """Keep a view's selections in the URL: state is [(query key, component id, prop), ...]; the view's layout
+    must hold a ``dcc.Store(id=f"{view_name}-url")``."""
+    app.clientside_callback(url_sync_script([k for k, _, _ in state]), Output(f"{view_name}-url", "data"),
+                            *[Input(cid, prop) for _, cid, prop in state])
+
+
+def context_of(server: flask.Flask) -> AppContext:
+    return server.config["HARKEN_CONTEXT"]

@@ -1,0 +1,169 @@
+"""Lots: lot-by-lot control charts of any per-actuation statistic, per rig or pooled, with limits and run-rule
+signals; clicking an actuation opens it, clicking a lot point lists the lot's actuations."""
+
+from __future__ import annotations
+
+from dash import Input, Output, dcc, html
+
+from analysis.monitor import RULES
+
+from .. import charting, figures, queries
+from .common import card, filter_bar, filters_from, fmt, pick, split_list, table, view_header
+
+NAME = "lots"
+PATH = "/lots"
+TITLE = "Lots"
+IN_MENU = True
+
+URL_STATE = [
+    ("profile", "lots-profile", "value"), ("event", "lots-event", "value"), ("stat", "lots-stat", "value"),
+    ("site", "lots-site", "value"), ("rig", "lots-rig", "value"), ("from", "lots-dates", "start_date"),
+    ("to", "lots-dates", "end_date"), ("group", "lots-group", "value"), ("rules", "lots-rules", "value"),
+    ("cloud", "lots-cloud", "value"), ("lot", "lots-selected", "data"),
+]
+
+
+def _chart_queries(conn, stat_key, event, filters, by_rig, cloud, max_points):
+    points = queries.lot_points(conn, stat_key, event, filters, by_rig=by_rig)
+    n = int(points["n"].sum()) if len(points) else 0
+    return (points, queries.reference_lots_of(conn, filters.profile, event),
+            queries.actuation_cloud(conn, stat_key, event, filters, max_points=max_points, n_total=n) if cloud else None)
+
+
+def lots_chart_data(store, stat_key: str, event: str, filters: queries.Filters, *, by_rig: bool = True,
+                    rules: str = "we", cloud: bool = True, max_points: int = 4000, cache=None):
+    """(LotChart, thinned actuation cloud or None, Statistic): everything the chart draws. The SQL aggregates
+    are kept in ``cache`` (a diskcache) until the store changes."""
+    from ..cache import cached_query
+
+    stat = queries.statistic(stat_key)
+    points, ref, cl = cached_query(store, cache, "lots", _chart_queries, stat_key, event, filters, by_rig, cloud,
+                                   max_points)
+    chart = charting.lot_chart(points, reference_lots=ref, log=stat.log, rules=rules)
+    return chart, cl, stat
+
+
+def chart_summary(chart, stat) -> str:
+    """One sentence under the chart: the limits, what they came from, and the signals."""
+    if chart.points.empty:
+        return "No lots in this selection."
+    sig = chart.points[chart.points["signal"]]
+    lim = "no limits" if chart.ucl != chart.ucl else (
+        f"centre {fmt(chart.to_display(chart.centre))}, limits {fmt(chart.to_display(chart.lcl))} – "
+        f"{fmt(chart.to_display(chart.ucl))}")
+    where = ", ".join(f"lot {r.lot} on {r.rig}" for r in sig.itertuples()) or "none"
+    scale = " (on a log scale: the lot's geometric mean)" if chart.log else " (the lot's mean)"
+    return (f"{stat.label}{scale}: {lim}, fitted to {chart.limits_from}. "
+            f"Signals ({len(sig)}): {where}.")
+
+
+def layout(ctx, q: dict):
+    with ctx.store.read() as conn:
+        ch = queries.choices(conn)
+    group = pick(q.get("group"), ("rig", "pooled"), "rig")
+    rules = pick(q.get("rules"), tuple(charting.RULE_SETS), "we")
+    cloud = [v for v in split_list(q.get("cloud", "on")) if v == "on"]
+    return html.Div([
+        view_header("Lots", "Lot-by-lot control chart of a per-actuation statistic. Click a single actuation to "
+                            "open it; click a lot point to list that lot's actuations."),
+        card(filter_bar(NAME, ch, q), html.Div(className="filter-bar", children=[
+            html.Label([html.Span("Points", className="filter-label"), dcc.RadioItems(
+                id="lots-group", value=group, inline=True,
+                options=[{"label": " one line per rig", "value": "rig"}, {"label": " all rigs pooled", "value": "pooled"}])],
+                className="filter"),
+            html.Label([html.Span("Run rules", className="filter-label"), dcc.RadioItems(
+                id="lots-rules", value=rules, inline=True,
+                options=[{"label": " Western Electric", "value": "we"}, {"label": " Nelson", "value": "nelson"},
+                         {"label": " none", "value": "none"}])], className="filter"),
+            dcc.Checklist(id="lots-cloud", value=cloud, options=[{"label": " show single actuations", "value": "on"}],
+                          className="filter"),
+        ])),
+        card(dcc.Loading(dcc.Graph(id="lots-chart", config={"displaylogo": False}), type="dot"),
+             html.P(id="lots-summary", className="chart-summary")),
+        dcc.Store(id="lots-selected", data=q.get("lot")),
+        card(html.Div(id="lots-detail"), class_name="lots-detail-card"),
+        dcc.Store(id="lots-url"),
+    ])
+
+
+def register(app, ctx):
+    from ..app import register_url_state
+
+    register_url_state(app, NAME, URL_STATE)
+
+    @app.callback(Output("lots-chart", "figure"), Output("lots-summary", "children"),
+                  Input("lots-profile", "value"), Input("lots-event", "value"), Input("lots-stat", "value"),
+                  Input("lots-site", "value"), Input("lots-rig", "value"), Input("lots-dates", "start_date"),
+                  Input("lots-dates", "end_date"), Input("lots-group", "value"), Input("lots-rules", "value"),
+                  Input("lots-cloud", "value"), Input("app-meeting", "data"))
+    def update_chart(profile, event, stat, sites_, rigs_, start, end, group, rules, cloud, meeting):
+        if not event:
+            return figures.empty_figure("No events with results in this store yet.", meeting=bool(meeting)), ""
+        f = filters_from(profile, sites_, rigs_, start, end)
+        chart, cl, st = lots_chart_data(ctx.store, stat, event, f, by_rig=group != "pooled", rules=rules or "we",
+                                        cloud="on" in (cloud or []), cache=ctx.drill_cache)
+        fig = figures.lot_chart_figure(chart, st, cloud=cl, meeting=bool(meeting), rule_words=dict(RULES))
+        return fig, chart_summary(chart, st)
+
+    # A click on a single actuation navigates the way a dcc.Link does (push the address, tell dcc.Location);
+    # a click on a lot point lists the lot below the chart. click_target() is the same decision in Python.
+    app.clientside_callback(
+        """
+        function(click) {
+            const nu = window.dash_clientside.no_update;
+            if (!click || !click.points || !click.points.length || !click.points[0].customdata) { return nu; }
+            const cd = click.points[0].customdata;
+            if (cd[0] === 'actuation') {
+                const meeting = document.body.classList.contains('meeting');
+                window.history.pushState({}, '', '/actuation/' + parseInt(cd[1], 10) + (meeting ? '?meeting=1' : ''));
+                window.dispatchEvent(new CustomEvent('_dashprivate_pushstate'));
+                window.scrollTo(0, 0);
+                return nu;
+            }
+            if (cd[0] === 'lot') { return cd[1] + '|' + cd[2]; }
+            return nu;
+        }
+        """,
+        Output("lots-selected", "data"), Input("lots-chart", "clickData"), prevent_initial_call=True,
+    )
+
+    @app.callback(Output("lots-detail", "children"), Input("lots-selected", "data"), Input("lots-group", "value"))
+    def show_lot(selected, group):
+        return lot_detail(ctx.store, selected)
+
+
+def click_target(click):
+    """("actuation", id) or ("lot", lot, rig) from a chart click, or None."""
+    try:
+        cd = click["points"][0]["customdata"]
+    except (TypeError, KeyError, IndexError):
+        return None
+    if not cd:
+        return None
+    if cd[0] == "actuation":
+        return ("actuation", int(cd[1]))
+    if cd[0] == "lot":
+        return ("lot", str(cd[1]), str(cd[2]))
+    return None
+
+
+def lot_detail(store, selected):
+    if not selected:
+        return html.P("Click a lot point to list its actuations here.", className="muted")
+    lot, _, rig = str(selected).partition("|")
+    rig_filter = None if rig in ("", "all rigs") else rig
+    with store.read() as conn:
+        df = queries.lot_actuations(conn, lot, rig=rig_filter)
+    if df.empty:
+        return html.P(f"No actuations of lot {lot}.")
+    df["state"] = ["quality check failed" if not p else ("flagged" if n else "analysed")
+                   for p, n in zip(df["passed_qc"], df["n_flags"])]
+    return html.Div([
+        html.H3(f"Lot {lot}" + (f" on {rig_filter}" if rig_filter else " (all rigs)") + f": {len(df)} actuations"),
+        html.P(dcc.Link("Show this lot's score trajectories", href=f"/trajectories?lots={lot}",
+                        id="lots-detail-trajectories")),
+        table(df, [("actuation_id", "Actuation"), ("unit", "Unit"), ("actuation", "No."), ("rig", "Rig"),
+                   ("recorded_at", "Recorded"), ("state", "State"), ("n_flags", "Flags")],
+              id="lots-detail-table", link=("actuation_id", lambda r: f"/actuation/{r['actuation_id']}"),
+              row_class=lambda r: "row-flagged" if r["state"] != "analysed" else None),
+    ])

@@ -1,0 +1,135 @@
+"""References: the stored reference models (lots used, parameters, limits, who made it and when, active or
+not), and building a new version from chosen lots as a background job with a progress bar."""
+
+from __future__ import annotations
+
+import uuid
+
+from dash import Input, Output, State, dcc, html
+
+from .. import queries
+from .common import card, fmt, table, view_header
+
+NAME = "references"
+PATH = "/references"
+TITLE = "References"
+IN_MENU = True
+
+
+def models_view(store) -> html.Div:
+    with store.read() as conn:
+        df = queries.models_table(conn)
+    if df.empty:
+        return html.P("No reference model yet: build one below from lots of known-good devices.", id="references-table")
+    df["lots"] = df["reference_lots"].map(", ".join)
+    df["params"] = df["parameters"].map(lambda p: ", ".join(f"{k}={v}" for k, v in p.items() if v is not None))
+    df["made"] = [f"{who}, {str(at)[:16]} UTC" for who, at in zip(df["created_by"], df["created_at"])]
+    return table(df, [("profile", "Profile", str), ("event", "Event", str), ("version", "Version"),
+                      ("status", "Status", str), ("lots", "Reference lots", str), ("n_recordings", "Actuations"),
+                      ("n_components", "Components"), ("t2_limit", "T² limit"), ("spe_limit", "SPE limit"),
+                      ("scored", "Scored"), ("flagged", "Flagged"), ("made", "Made by, when", str),
+                      ("params", "Parameters", str)], id="references-table",
+                 row_class=lambda r: "row-active" if r["status"] == "active" else "row-retired")
+
+
+def build_models(store_url, files_dir, profile: str, lots_, events_, person: str, progress=lambda i, n, msg: None):
+    """Fit and store one new active version per event from ``lots_`` (analysis.store.build_reference), calling
+    progress(done, total, message) after each event. Opens its own store connection (it runs in a job process)."""
+    from analysis.store import Store, build_reference
+
+    names = list(events_)
+    done = []
+    with Store.open(store_url, files_dir=files_dir, create=False) as store:
+        for i, event in enumerate(names):
+            progress(i, len(names), f"fitting {event.replace('_', ' ')} ({i + 1} of {len(names)}) ...")
+            made = build_reference(store, profile, [event], lots_, created_by=person)
+            done += made
+        progress(len(names), len(names), "done")
+    return done
+
+
+def layout(ctx, q: dict):
+    with ctx.store.read() as conn:
+        ch = queries.choices(conn)
+        ref_now = {}
+        for p, evs in ch["events"].items():
+            for e in evs:
+                ref_now[(p, e)] = queries.reference_lots_of(conn, p, e)
+    profile = ch["profiles"][0] if ch["profiles"] else None
+    events = ch["events"].get(profile, []) if profile else []
+    current = sorted({lot for v in ref_now.values() for lot in v})
+    return html.Div([
+        view_header("References", "Reference models fitted from lots of known-good devices. Every actuation is "
+                                  "scored against the active version of its event."),
+        card(html.H2("Stored models"), html.Div(models_view(ctx.store), id="references-models")),
+        card(html.H2("Build a new version"),
+             html.P("Choose the lots that make the reference set. Building fits one model per chosen event, makes "
+                    "it the active version (the old one is kept, retired) and scores every stored actuation with it. "
+                    "It is recorded in the store's audit log under your name.", className="muted"),
+             html.Div(className="filter-bar", children=[
+                 html.Label([html.Span("Device profile", className="filter-label"), dcc.Dropdown(
+                     id="references-profile", options=ch["profiles"], value=profile, clearable=False)], className="filter"),
+                 html.Label([html.Span("Events", className="filter-label"), dcc.Checklist(
+                     id="references-events", options=events, value=events, inline=True)], className="filter"),
+                 html.Label([html.Span("Your name", className="filter-label"), dcc.Input(
+                     id="references-person", value="", placeholder="who builds it", className="text-input")],
+                     className="filter"),
+             ]),
+             html.Label([html.Span("Reference lots", className="filter-label"), dcc.Checklist(
+                 id="references-lots", options=ch["lots"], value=current, inline=True, className="lot-checklist")]),
+             html.Div(className="build-row", children=[
+                 html.Button("Build reference", id="references-build", className="button-primary"),
+                 html.Button("Cancel", id="references-cancel", className="button"),
+                 html.Progress(id="references-progress", value="0", max="1", className="progress"),
+                 html.Span(id="references-status", className="muted"),
+             ])),
+        dcc.Store(id="references-load-id", data=uuid.uuid4().hex),
+    ])
+
+
+def _f(info, name):
+    """A field of the store's ModelInfo (a dataclass; earlier a dict)."""
+    return info[name] if isinstance(info, dict) else getattr(info, name)
+
+
+def check_build(profile, lots_, events_, person) -> str | None:
+    """What is missing before a build can start (None when nothing)."""
+    if not (person or "").strip():
+        return "Give your name: a reference build is recorded under it."
+    if not profile:
+        return "Choose a device profile."
+    if not lots_:
+        return "Choose at least one reference lot."
+    if not events_:
+        return "Choose at least one event."
+    return None
+
+
+def register(app, ctx):
+    store_url = ctx.extra.get("store_url")
+    files_dir = ctx.store.files_dir
+
+    @app.callback(
+        Output("references-models", "children"), Output("references-status", "children"),
+        Input("references-build", "n_clicks"),
+        State("references-profile", "value"), State("references-lots", "value"), State("references-events", "value"),
+        State("references-person", "value"), State("references-load-id", "data"),
+        background=True, prevent_initial_call=True,
+        running=[(Output("references-build", "disabled"), True, False),
+                 (Output("references-cancel", "disabled"), False, True)],
+        cancel=[Input("references-cancel", "n_clicks")],
+        progress=[Output("references-progress", "value"), Output("references-progress", "max"),
+                  Output("references-status", "children", allow_duplicate=True)],
+    )
+    def build(set_progress, _n, profile, lots_, events_, person, _load_id):
+        problem = check_build(profile, lots_, events_, person)
+        if problem:
+            return models_view(ctx.store), problem
+        try:
+            made = build_models(store_url, files_dir, profile, lots_, events_, person.strip(),
+                                progress=lambda i, n, msg: set_progress((str(i), str(n), msg)))
+        except Exception as exc:  # noqa: BLE001 - shown to the person who started the build
+            return models_view(ctx.store), f"Build failed: {exc}"
+        words = "; ".join(f"{_f(m, 'event')} version {_f(m, 'version')} ({_f(m, 'n_components')} components, "
+                          f"{_f(m, 'n_recordings')} actuations, {_f(m, 'scored')} scored)" for m in made)
+        return models_view(ctx.store), f"Built: {words}."

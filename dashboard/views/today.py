@@ -1,0 +1,123 @@
+"""Today: the latest recordings of every rig with their state, refreshing by itself; each flag in plain words
+with its suggested cause (recording / rig / lot / unit), and the recordings that could not be analysed."""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+
+import pandas as pd
+from dash import Input, Output, dcc, html
+
+from .. import queries, triage
+from .common import card, pick, table, view_header
+
+NAME = "today"
+PATH = "/today"
+TITLE = "Today"
+IN_MENU = True
+
+URL_STATE = [("per_rig", "today-per-rig", "value")]
+PER_RIG_CHOICES = (5, 10, 20, 50)
+#: Flag lines shown per actuation (the rest are on its own page).
+MAX_LINES = 3
+
+
+def today_data(store, *, per_rig: int = 10) -> dict:
+    """rows: the latest actuations per rig with a state; flags: their flags with words, suggested cause and why;
+    quarantine: the latest quarantined recordings; counts: per state."""
+    with store.read() as conn:
+        rows = queries.latest_per_rig(conn, per_rig=per_rig)
+        fl = queries.flags_for(conn, rows["actuation_id"])
+        quar = queries.recent_quarantine(conn)
+        flagged = rows[rows["actuation_id"].isin(set(fl["actuation_id"]))]
+        evidence = queries.triage_evidence(conn, sorted(set(flagged["lot"])), sorted(set(flagged["rig"])))
+    rows = rows.copy()
+    rows["state"] = [triage.actuation_state(passed_qc=bool(p), n_model_flags=int(m), n_qc_flags=int(q))
+                     for p, m, q in zip(rows["passed_qc"], rows["n_model_flags"], rows["n_qc_flags"])]
+    causes = {}
+    for aid, g in fl.groupby("actuation_id"):
+        r = rows[rows["actuation_id"] == aid].iloc[0]
+        causes[aid] = triage.suggest_cause(g["statistic"].tolist(), lot=r["lot"], rig=r["rig"], evidence=evidence)
+    rows["cause"] = rows["actuation_id"].map(lambda a: causes.get(a, ("", ""))[0])
+    fl = fl.merge(rows[["actuation_id", "site", "rig", "lot", "unit", "recorded_at"]], on="actuation_id", how="left")
+    fl["words"] = [triage.describe_flag(s, e, r, v, lim) for s, e, r, v, lim in
+                   zip(fl["statistic"], fl["event"], fl["reason"], fl["value"], fl["limit"])]
+    fl["cause"] = fl["actuation_id"].map(lambda a: causes[a][0])
+    fl["because"] = fl["actuation_id"].map(lambda a: causes[a][1])
+    counts = rows["state"].value_counts().to_dict()
+    counts["quarantined"] = len(quar)
+    return {"rows": rows, "flags": fl, "quarantine": quar, "counts": counts}
+
+
+NEXT_STEP = {
+    "recording": "check the microphone, gain and cabling on the rig, then re-record",
+    "rig": "look at the rig (drive, fixture, microphone position) before the next lot",
+    "lot": "compare the lot with its neighbours on the Lots view and tell the method owner",
+    "unit": "listen to the actuation against the reference and set the unit aside for inspection",
+}
+
+
+def render_today(data: dict) -> html.Div:
+    rows, fl, quar, counts = data["rows"], data["flags"], data["quarantine"], data["counts"]
+    badges = html.Div(className="state-badges", children=[
+        html.Span(f"{counts.get(s, 0)} {s}", className=f"state state-{s.replace(' ', '-')}")
+        for s in ("analysed", "flagged", "quality check failed", "quarantined")])
+    items = []
+    latest_first = fl.sort_values("recorded_at", ascending=False, kind="stable")
+    for aid, g in latest_first.groupby("actuation_id", sort=False):
+        r = g.iloc[0]
+        items.append(html.Li(className=f"flag-item cause-{r['cause']}", children=[
+            html.Div([dcc.Link(f"Actuation {aid}", href=f"/actuation/{aid}"),
+                      html.Span(f" · {r['rig']} ({r['site']}) · lot {r['lot']} · unit {r['unit']} · {r['recorded_at']}",
+                                className="muted")]),
+            html.Ul([html.Li(w) for w in g["words"].head(MAX_LINES)] + (
+                [html.Li(f"... and {len(g) - MAX_LINES} more on the actuation's page", className="muted")]
+                if len(g) > MAX_LINES else [])),
+            html.Div([html.Strong(f"Suggested cause: {r['cause']}"), html.Span(f" — {r['because']}. "),
+                      html.Span(f"Next: {NEXT_STEP[r['cause']]}.", className="muted")]),
+        ]))
+    flags_block = html.Ul(items, id="today-flags", className="flag-list") if items else \
+        html.P("Nothing flagged among the latest recordings.", id="today-flags")
+    per_rig = []
+    for (site, rig), g in rows.groupby(["site", "rig"], sort=True):
+        per_rig.append(html.Div(className="rig-block", children=[
+            html.H3(f"{rig} · {site}"),
+            table(g, [("actuation_id", "Actuation"), ("recorded_at", "Recorded", str), ("lot", "Lot", str),
+                      ("unit", "Unit", str), ("state", "State", str), ("cause", "Suggested cause", str)],
+                  link=("actuation_id", lambda r: f"/actuation/{r['actuation_id']}"),
+                  row_class=lambda r: f"row-{r['state'].replace(' ', '-')}"),
+        ]))
+    quar_block = table(quar, [("file", "File", str), ("reason", "Reason", str), ("rig", "Rig", str),
+                              ("received_at", "Received (UTC)", str)], id="today-quarantine") if len(quar) else \
+        html.P("No recording was quarantined.", id="today-quarantine")
+    return html.Div([
+        card(badges, html.P(f"Updated {datetime.now(timezone.utc).strftime('%H:%M:%S')} UTC.", className="muted")),
+        card(html.H2("Flags"), flags_block),
+        card(html.H2("Quarantined recordings"), html.P("These could not be analysed; the reason says why.",
+                                                        className="muted"), quar_block),
+        card(html.H2("Latest recordings per rig"), html.Div(per_rig, className="rig-grid")),
+    ])
+
+
+def layout(ctx, q: dict):
+    per_rig = pick(q.get("per_rig"), [str(v) for v in PER_RIG_CHOICES], "10")
+    return html.Div([
+        view_header("Today", "The latest recordings of every rig. This page refreshes by itself."),
+        card(html.Label([html.Span("Recordings per rig", className="filter-label"), dcc.Dropdown(
+            id="today-per-rig", value=per_rig, clearable=False,
+            options=[{"label": str(v), "value": str(v)} for v in PER_RIG_CHOICES])], className="filter")),
+        dcc.Interval(id="today-interval", interval=int(ctx.refresh_s * 1000)),
+        html.Div(id="today-body"),
+        dcc.Store(id="today-url"),
+    ])
+
+
+def register(app, ctx):
+    from ..app import register_url_state
+
+    register_url_state(app, NAME, URL_STATE)
+
+    @app.callback(Output("today-body", "children"), Input("today-interval", "n_intervals"),
+                  Input("today-per-rig", "value"))
+    def refresh(_n, per_rig):
+        return render_today(today_data(ctx.store, per_rig=int(per_rig or 10)))

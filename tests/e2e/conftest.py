@@ -1,0 +1,99 @@
+"""Browser tests: the dashboard served in a thread on a store filled from the small scenario, driven by
+Playwright with Debian's Chromium (/usr/bin/chromium; no downloaded browser). Skipped when either is missing.
+Screenshots go to test-artifacts/dashboard/ (not committed)."""
+
+from __future__ import annotations
+
+import os
+import shutil
+import threading
+from pathlib import Path
+
+import pytest
+
+from tests.dashboard.conftest import filled_store  # noqa: F401 - the same session fixture, for these tests
+
+ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts" / "dashboard"
+CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync", "--no-first-run"]
+
+
+def chromium_binary() -> str | None:
+    for c in (os.environ.get("HARKEN_CHROMIUM"), "/usr/bin/chromium", shutil.which("chromium")):
+        if c and Path(c).exists():
+            return c
+    return None
+
+
+@pytest.fixture(scope="session")
+def server(filled_store, tmp_path_factory):  # noqa: F811
+    from werkzeug.serving import make_server
+
+    from dashboard import create_app
+
+    url, _ = filled_store
+    app = create_app(url, cache_dir=tmp_path_factory.mktemp("e2e-cache"), refresh_s=3600)
+    srv = make_server("127.0.0.1", 0, app.server, threaded=True)
+    thread = threading.Thread(target=srv.serve_forever, daemon=True)
+    thread.start()
+    yield f"http://127.0.0.1:{srv.server_port}"
+    srv.shutdown()
+    thread.join(timeout=10)
+
+
+@pytest.fixture(scope="session")
+def browser():
+    required = os.environ.get("HARKEN_REQUIRE_BROWSER") == "1"  # CI: a missing browser fails, never skips
+    try:
+        from playwright import sync_api
+    except ImportError:
+        if required:
+            pytest.fail("HARKEN_REQUIRE_BROWSER=1 but the playwright package is not installed")
+        pytest.skip("the playwright package is not installed")
+    binary = chromium_binary()
+    if binary is None:
+        if required:
+            pytest.fail("HARKEN_REQUIRE_BROWSER=1 but Debian's chromium is not installed (run .ci/browser.sh)")
+        pytest.skip("Debian's chromium is not installed (run .ci/browser.sh)")
+    with sync_api.sync_playwright() as p:
+        b = p.chromium.launch(executable_path=binary, args=CHROMIUM_ARGS)
+        yield b
+        b.close()
+
+
+@pytest.fixture
+def page(browser):
+    """A fresh page; page.errors collects console errors and uncaught page errors."""
+    context = browser.new_context(viewport={"width": 1400, "height": 1000})
+    pg = context.new_page()
+    pg.errors = []
+    pg.on("console", lambda m: pg.errors.append(m.text) if m.type == "error" else None)
+    pg.on("pageerror", lambda e: pg.errors.append(f"page error: {e}"))
+    pg.set_default_timeout(20_000)
+    yield pg
+    context.close()
+
+
+@pytest.fixture(scope="session")
+def artifacts():
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    return ARTIFACTS
+
+
+@pytest.fixture
+def writable_server(filled_store, tmp_path):  # noqa: F811
+    """The dashboard on a private copy of the filled store (a test here may build references)."""
+    from werkzeug.serving import make_server
+
+    from dashboard import create_app
+
+    _, info = filled_store
+    dst = tmp_path / "copy"
+    shutil.copytree(info["folder"], dst, ignore=shutil.ignore_patterns("*-dashboard-cache"))
+    app = create_app(f"sqlite:///{dst / 'harken.db'}", cache_dir=tmp_path / "cache", refresh_s=3600)
+    srv = make_server("127.0.0.1", 0, app.server, threaded=True)
+    thread = threading.Thread(target=srv.serve_forever, daemon=True)
+    thread.start()
+    yield f"http://127.0.0.1:{srv.server_port}"
+    srv.shutdown()
+    thread.join(timeout=10)
