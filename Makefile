@@ -1,5 +1,5 @@
 # Harken: two commands on a fresh machine.
-#   make demo   generate the demo scenario, analyse it, print what the monitoring found
+#   make demo   generate the demo scenario, ingest it, build the reference, serve the dashboard on it
 #   make test   run the whole test suite
 # The Makefile makes .venv and installs everything itself.
 
@@ -23,6 +23,7 @@ install: $(STAMP)
 
 demo: $(STAMP)
 	$(BIN)/harken demo --out $(DEMO_DIR)
+	$(BIN)/harken serve --store $(DEMO_DIR)/harken.db --host 127.0.0.1 --port 8050
 
 # pytest exits 5 when it collected no test: that is a failure here, not a pass.
 test: $(STAMP)

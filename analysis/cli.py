@@ -83,6 +83,10 @@ def build_parser() -> argparse.ArgumentParser:
     from . import store_cli
 
     store_cli.register(sub, bench=bsub)  # worker, ingest, reference, rescore, export, bench ingest
+    # The command line is the one place that knows the dashboard too: serve, bench dashboard.
+    from dashboard import serve_cli
+
+    serve_cli.register(sub, bench_subparsers=bsub)
 
     p = sub.add_parser("demo", help="generate the demo scenario, fit the reference, analyse and summarise")
     p.add_argument("--out", default="demo_out", metavar="DIR")
@@ -99,6 +103,10 @@ def main(argv: list[str] | None = None) -> int:
         from . import store_cli
 
         rc = store_cli.dispatch(args)
+        if rc is None:
+            from dashboard import serve_cli
+
+            rc = serve_cli.dispatch(args)
         if rc is not None:
             return rc
         if args.command == "analyse":
