@@ -285,9 +285,15 @@ def process_files(
                                       claim_timeout_s=claim_timeout_s)
             for (path, name, h, _), claim in zip(hashed, claims):
                 if claim.kind == "duplicate" and claim.status == "quarantined":
+                    # Only a sidecar that is there now can be a corrected one: a sidecar that vanished meanwhile
+                    # is another worker finishing this very file, not a new delivery.
                     side = sidecar_path(path)
-                    text = side.read_text(encoding="utf-8", errors="replace")[:100_000] if side.exists() else None
-                    if store.reopen_quarantined(claim.recording_id, worker=worker_id, sidecar_text=text):
+                    try:
+                        text = side.read_text(encoding="utf-8", errors="replace")[:100_000]
+                    except FileNotFoundError:
+                        text = None
+                    if text is not None and path.exists() and store.reopen_quarantined(
+                            claim.recording_id, worker=worker_id, sidecar_text=text):
                         claim = Claim("retry", claim.recording_id, "claimed", name)
                         bar.line(f"retry      {name}: was quarantined, delivered again with another sidecar")
                 if claim.kind == "duplicate":
