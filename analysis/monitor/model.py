@@ -124,8 +124,9 @@ class MonitoringResult:
     event_spe_threshold: float = math.inf
     event_spe_flag: np.ndarray | None = None
 
-    def reasons(self, i):
-        """Plain-language reasons why actuation i is flagged (empty list when it is not)."""
+    def raised(self, i):
+        """The statistics that flag actuation i, as (statistic, value, threshold, plain-language reason) tuples;
+        statistic is "t2", "spe", "trajectory" or "event_residual". Empty when the actuation is not flagged."""
         n_slices = self.t2.shape[1]
 
         def at(s):
@@ -134,22 +135,26 @@ class MonitoringResult:
 
         out = []
         if self.t2_flag[i]:
-            out.append(f"T² {self.t2_ratio[i]:.1f}× its limit at {at(self.t2_max_slice[i])}")
+            out.append(("t2", self.t2_ratio[i], self.t2_ratio_threshold,
+                        f"T² {self.t2_ratio[i]:.1f}× its limit at {at(self.t2_max_slice[i])}"))
         if self.spe_flag[i]:
-            out.append(f"SPE {self.spe_ratio[i]:.1f}× its limit at {at(self.spe_max_slice[i])}")
+            out.append(("spe", self.spe_ratio[i], self.spe_ratio_threshold,
+                        f"SPE {self.spe_ratio[i]:.1f}× its limit at {at(self.spe_max_slice[i])}"))
         if self.trajectory_flag[i]:
-            out.append(
-                f"score trajectory outside the reference envelope on {int(self.slices_outside[i])} of "
-                f"{n_slices} slices (distance {self.trajectory_distance[i]:.1f}, threshold "
-                f"{self.distance_threshold:.1f})"
-            )
+            out.append(("trajectory", self.trajectory_distance[i], self.distance_threshold,
+                        f"score trajectory outside the reference envelope on {int(self.slices_outside[i])} of "
+                        f"{n_slices} slices (distance {self.trajectory_distance[i]:.1f}, threshold "
+                        f"{self.distance_threshold:.1f})"))
         if self.event_spe_flag is not None and self.event_spe_flag[i]:
-            out.append(
-                f"the event's mean spectrum departs from the model: residual {self.event_spe_ratio[i]:.1f}× its "
-                f"reference median (threshold {self.event_spe_threshold:.1f}), a small change that lasts the "
-                "whole event"
-            )
+            out.append(("event_residual", self.event_spe_ratio[i], self.event_spe_threshold,
+                        f"the event's mean spectrum departs from the model: residual {self.event_spe_ratio[i]:.1f}× "
+                        f"its reference median (threshold {self.event_spe_threshold:.1f}), a small change that lasts "
+                        "the whole event"))
         return out
+
+    def reasons(self, i):
+        """Plain-language reasons why actuation i is flagged (empty list when it is not)."""
+        return [why for *_, why in self.raised(i)]
 
 
 def _scale_fit(x3, scaling, centring="global"):

@@ -56,7 +56,6 @@ def score_rows(model: ReferenceModel, X: np.ndarray) -> list:
     num = writes.num
     out = []
     for i in range(x.shape[0]):
-        reasons = m.reasons(i)
         traj = dict(
             n_slices=int(m.t2.shape[1]), n_components=int(m.scores.shape[2]),
             scores_f32=writes.f32(m.scores[i]), t2_f32=writes.f32(m.t2[i]), spe_f32=writes.f32(m.spe[i]),
@@ -65,15 +64,8 @@ def score_rows(model: ReferenceModel, X: np.ndarray) -> list:
             event_spe_ratio=num(m.event_spe_ratio[i]) if m.event_spe_ratio is not None else None,
             slices_outside=int(m.slices_outside[i]), flagged=bool(m.flagged[i]),
         )
-        # reasons(i) lists the raised statistics in this order (analysis.monitor.model.MonitoringResult.reasons).
-        raised = [("t2", m.t2_flag[i], m.t2_ratio[i], m.t2_ratio_threshold),
-                  ("spe", m.spe_flag[i], m.spe_ratio[i], m.spe_ratio_threshold),
-                  ("trajectory", m.trajectory_flag[i], m.trajectory_distance[i], m.distance_threshold)]
-        if m.event_spe_flag is not None:
-            raised.append(("event_residual", m.event_spe_flag[i], m.event_spe_ratio[i], m.event_spe_threshold))
-        raised = [r for r in raised if r[1]]
         fl = [dict(statistic=stat, value=num(v), limit_value=num(lim), reason=why)
-              for (stat, _, v, lim), why in zip(raised, reasons)]
+              for stat, v, lim, why in m.raised(i)]
         out.append((traj, fl))
     return out
 
