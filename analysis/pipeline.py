@@ -197,11 +197,13 @@ def analyse_signals(
 
     # Events, in profile order (an event may search relative to an earlier one).
     timings: dict[str, object] = {}
-    onsets = None
-    if any(spec.detector == "flux" for spec in profile.events) and mic.size:
-        onsets = _events.onset_candidates(mic, sample_rate_hz=fs, log_gamma=ONSET_LOG_GAMMA)
+    onsets = floor = None
+    if mic.size:  # once per recording, shared by every event's search
+        floor = _events.noise_floor_db(mic, sample_rate_hz=fs)
+        if any(spec.detector == "flux" for spec in profile.events):
+            onsets = _events.onset_candidates(mic, sample_rate_hz=fs, log_gamma=ONSET_LOG_GAMMA)
     for spec in profile.events:
-        timings[spec.name] = _find(mic, fs, spec, markers, timings, onsets)
+        timings[spec.name] = _find(mic, fs, spec, markers, timings, onsets, floor)
     events = tuple(timings[s.name] for s in profile.events)
 
     found = [ev for ev in events if ev.found]
@@ -255,10 +257,10 @@ def analyse_signals(
     )
 
 
-def _find(mic, fs, spec: EventSpec, markers, timings, onsets):
+def _find(mic, fs, spec: EventSpec, markers, timings, onsets, floor_db):
     """Search window for one event: its marker if present, else its onset window (absolute or after an event)."""
     max_length = spec.length_s
-    opts = dict(detector=spec.detector, onsets=onsets, log_gamma=ONSET_LOG_GAMMA)
+    opts = dict(detector=spec.detector, onsets=onsets, log_gamma=ONSET_LOG_GAMMA, floor_db=floor_db)
     if spec.find == "marker" and spec.marker is not None and len(markers) >= spec.marker:
         m = markers[spec.marker - 1]
         return _events.find_event(
