@@ -259,17 +259,10 @@ def _cmd_demo_data(args) -> int:
 
     t0 = time.perf_counter()
     summary = generate(args.out, scenario=args.scenario, seed=args.seed, jobs=args.jobs)
-    print(describe_generation(summary))
+    print(summary.describe())
     print(f"generated in {time.perf_counter() - t0:.1f} s")
     return 0
 
-
-def describe_generation(summary) -> str:
-    """One line on what the demo generator wrote."""
-    conditions = ", ".join(f"{k} {v}" for k, v in sorted(summary.conditions.items()))
-    return (f"wrote {summary.n_actuations} recordings of scenario {summary.scenario!r} (seed {summary.seed}; "
-            f"{conditions}) and {summary.ground_truth.name} to {summary.out_dir} "
-            f"({summary.bytes_written / 1e6:.1f} MB, {summary.jobs} jobs)")
 
 
 # --------------------------------------------------------------------------------------------------- model

@@ -55,9 +55,7 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
         echo(f"generating the {scenario!r} demo scenario into {inbox} ...")
         summary = generate(inbox, scenario=scenario, seed=seed, jobs=jobs)
         (inbox / ".harken-demo.json").write_text(json.dumps(key))
-        from .cli import describe_generation
-
-        echo(f"  {describe_generation(summary)} in {time.perf_counter() - t0:.1f} s")
+        echo(f"  {summary.describe()} in {time.perf_counter() - t0:.1f} s")
 
     truth = pd.read_csv(inbox / "ground_truth.csv")
     truth["reference"] = truth["reference"].astype(str).str.lower().isin(["true", "1"])

@@ -87,6 +87,13 @@ class GenerationSummary:
     jobs: int = 1
     elapsed_s: float = 0.0
 
+    def describe(self) -> str:
+        """One line on what was written."""
+        conditions = ", ".join(f"{k} {v}" for k, v in sorted(self.conditions.items()))
+        truth = self.ground_truth.name if self.ground_truth is not None else "no ground truth"
+        return (f"wrote {self.n_actuations} recordings of scenario {self.scenario!r} (seed {self.seed}; "
+                f"{conditions}) and {truth} to {self.out_dir} ({self.bytes_written / 1e6:.1f} MB, {self.jobs} jobs)")
+
 
 def _rng(*key: int) -> np.random.Generator:
     return np.random.default_rng(np.random.SeedSequence([int(k) for k in key]))
