@@ -26,12 +26,14 @@ def run(args) -> int:
     raise SystemExit(f"unknown bench {args.bench_command!r}")
 
 
-def _best(fn, repeat: int) -> float:
-    best = float("inf")
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - t0)
+def _interleaved_best(fns, repeat: int) -> list[float]:
+    """Best-of-``repeat`` seconds of each function, run in turn each round: a load spike hits them all alike."""
+    best = [float("inf")] * len(fns)
+    for _ in range(max(1, repeat)):
+        for k, fn in enumerate(fns):
+            t0 = time.perf_counter()
+            fn()
+            best[k] = min(best[k], time.perf_counter() - t0)
     return best
 
 
@@ -120,11 +122,7 @@ def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
             for path, pplan in zip(files, peer_plans):
                 _peer_one(path, pplan)
 
-        t_ours = t_floor = t_peer = float("inf")
-        for _ in range(max(1, repeat)):  # interleaved, best of each: load spikes hit all three alike
-            t_ours = min(t_ours, _best(ours, 1))
-            t_floor = min(t_floor, _best(floor, 1))
-            t_peer = min(t_peer, _best(peer, 1))
+        t_ours, t_floor, t_peer = _interleaved_best([ours, floor, peer], repeat)
 
     n = len(files)
     result = {
@@ -177,10 +175,7 @@ def bench_score(*, n_actuations: int = 10_000, n_slices: int = 40, n_bands: int 
     def ours():
         model.score(new)
 
-    t_ours = t_floor = float("inf")
-    for _ in range(max(1, repeat)):
-        t_ours = min(t_ours, _best(ours, 1))
-        t_floor = min(t_floor, _best(floor, 1))
+    t_ours, t_floor = _interleaved_best([ours, floor], repeat)
     result = {
         "rows": flat.shape[0],
         "score_s": t_ours,

@@ -265,6 +265,17 @@ def process_files(
             _remove_source(path, inbox_root)
 
     claim_hash: dict[Path, str] = {}
+
+    def drain(limit: int) -> None:
+        """Finish analyses as they complete until fewer than ``limit`` are pending."""
+        while len(pending) >= limit:
+            done, _ = wait(pending, return_when=FIRST_COMPLETED)
+            for fut in done:
+                p, n, c = pending.pop(fut)
+                finish(p, n, c, fut.result())
+                claim_hash.pop(p, None)
+                bar.step()
+
     own_pool = None
     if pool is None and jobs > 1:
         own_pool = pool = make_pool(jobs)
@@ -315,20 +326,8 @@ def process_files(
                     bar.step()
                     continue
                 pending[pool.submit(_analyse_task, str(path), dirs)] = (path, name, claim)
-                while len(pending) >= window:
-                    done, _ = wait(pending, return_when=FIRST_COMPLETED)
-                    for fut in done:
-                        p, n, c = pending.pop(fut)
-                        finish(p, n, c, fut.result())
-                        claim_hash.pop(p, None)
-                        bar.step()
-        while pending:
-            done, _ = wait(pending, return_when=FIRST_COMPLETED)
-            for fut in done:
-                p, n, c = pending.pop(fut)
-                finish(p, n, c, fut.result())
-                claim_hash.pop(p, None)
-                bar.step()
+                drain(window)
+        drain(1)
         flush()
     except KeyboardInterrupt:
         flush()  # what is analysed is kept; claims of the rest are taken up again after the claim timeout

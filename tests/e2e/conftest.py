@@ -4,6 +4,7 @@ Screenshots go to test-artifacts/dashboard/ (not committed)."""
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
 import threading
@@ -11,7 +12,8 @@ from pathlib import Path
 
 import pytest
 
-from tests.dashboard.conftest import filled_store  # noqa: F401 - the same session fixture, for these tests
+# the same fixtures as the dashboard's unit tests: a session store from the small scenario, and a private copy
+from tests.dashboard.conftest import filled_store, store_copy  # noqa: F401
 
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts" / "dashboard"
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
@@ -25,20 +27,29 @@ def chromium_binary() -> str | None:
     return None
 
 
-@pytest.fixture(scope="session")
-def server(filled_store, tmp_path_factory):  # noqa: F811
+@contextlib.contextmanager
+def _serving(store_url, cache_dir):
+    """The dashboard on store_url, served by werkzeug in a thread on a free port; yields its base URL."""
     from werkzeug.serving import make_server
 
     from dashboard import create_app
 
-    url, _ = filled_store
-    app = create_app(url, cache_dir=tmp_path_factory.mktemp("e2e-cache"), refresh_s=3600)
+    app = create_app(store_url, cache_dir=cache_dir, refresh_s=3600)
     srv = make_server("127.0.0.1", 0, app.server, threaded=True)
     thread = threading.Thread(target=srv.serve_forever, daemon=True)
     thread.start()
-    yield f"http://127.0.0.1:{srv.server_port}"
-    srv.shutdown()
-    thread.join(timeout=10)
+    try:
+        yield f"http://127.0.0.1:{srv.server_port}"
+    finally:
+        srv.shutdown()
+        thread.join(timeout=10)
+
+
+@pytest.fixture(scope="session")
+def server(filled_store, tmp_path_factory):  # noqa: F811
+    url, _ = filled_store
+    with _serving(url, tmp_path_factory.mktemp("e2e-cache")) as base:
+        yield base
 
 
 @pytest.fixture(scope="session")
@@ -81,19 +92,7 @@ def artifacts():
 
 
 @pytest.fixture
-def writable_server(filled_store, tmp_path):  # noqa: F811
+def writable_server(store_copy, tmp_path):  # noqa: F811
     """The dashboard on a private copy of the filled store (a test here may build references)."""
-    from werkzeug.serving import make_server
-
-    from dashboard import create_app
-
-    _, info = filled_store
-    dst = tmp_path / "copy"
-    shutil.copytree(info["folder"], dst, ignore=shutil.ignore_patterns("*-dashboard-cache"))
-    app = create_app(f"sqlite:///{dst / 'harken.db'}", cache_dir=tmp_path / "cache", refresh_s=3600)
-    srv = make_server("127.0.0.1", 0, app.server, threaded=True)
-    thread = threading.Thread(target=srv.serve_forever, daemon=True)
-    thread.start()
-    yield f"http://127.0.0.1:{srv.server_port}"
-    srv.shutdown()
-    thread.join(timeout=10)
+    with _serving(store_copy, tmp_path / "cache") as base:
+        yield base
