@@ -158,7 +158,7 @@ def _cmd_analyse(args) -> int:
             mic = load_profile(args.profile, search_dirs=args.profiles).channels.get("mic", 0)
         try:
             offset = calibration_offset_db(
-                cal.channel(min(mic, cal.n_channels - 1)), sample_rate_hz=cal.sample_rate_hz,
+                cal.channel(mic), sample_rate_hz=cal.sample_rate_hz,
                 level_db=args.calibration_level_db,
             )
         except ParameterError as exc:

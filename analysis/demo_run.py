@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import AnalysisError
+from .io import read_sidecar
 
 __all__ = ["run", "run_demo"]
 
@@ -59,8 +60,7 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
 
     truth = pd.read_csv(inbox / "ground_truth.csv")
     truth["reference"] = truth["reference"].astype(str).str.lower().isin(["true", "1"])
-    profiles = sorted(set(json.loads((inbox / Path(f).with_suffix(".json")).read_text())["profile"]
-                          for f in truth["file"].head(20)))
+    profiles = sorted(set(read_sidecar(inbox / f).profile for f in truth["file"].head(20)))
     if len(profiles) != 1:
         raise AnalysisError(f"{inbox}: the demo expects one device profile, found {profiles}")
 

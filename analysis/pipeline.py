@@ -22,7 +22,8 @@ from .signal import events as _events
 from .signal import features as _features
 from .signal import quality as _quality
 
-__all__ = ["RecordingResult", "analyse_signals", "analyse_file", "band_layout", "markers_for", "ONSET_LOG_GAMMA"]
+__all__ = ["RecordingResult", "analyse_signals", "analyse_file", "band_layout", "markers_for", "json_number",
+           "ONSET_LOG_GAMMA"]
 
 #: Spectral flux on log(1 + γ|X|) magnitudes (full-scale units): a sound's rise counts by its ratio over what was
 #: before, not by its absolute size, so a click is not drowned by the flux of loud airflow noise elsewhere in the
@@ -70,15 +71,15 @@ class RecordingResult:
                 "profile": self.profile,
                 "sample_rate_hz": self.sample_rate_hz,
                 "channels": self.n_channels,
-                "duration_s": _num(self.duration_s),
-                "markers_s": [_num(m) for m in self.markers_s],
+                "duration_s": json_number(self.duration_s),
+                "markers_s": [json_number(m) for m in self.markers_s],
                 "marker_source": self.marker_source,
                 "passed_qc": self.passed_qc,
                 "notes": list(self.notes),
                 "metadata": self.sidecar.to_json() if self.sidecar is not None else None,
             },
             "qc": [
-                {"check": r.check, "value": _num(r.value), "limit": _num(r.limit), "passed": bool(r.passed),
+                {"check": r.check, "value": json_number(r.value), "limit": json_number(r.limit), "passed": bool(r.passed),
                  "detail": r.detail}
                 for r in self.qc
             ],
@@ -86,11 +87,11 @@ class RecordingResult:
                 {
                     "name": ev.name,
                     "found": bool(ev.found),
-                    "onset_s": _num(ev.onset_s),
-                    "end_s": _num(ev.end_s),
-                    "duration_s": _num(ev.duration_s),
-                    "peak_dbfs": _num(ev.peak_dbfs),
-                    "latency_s": _num(ev.latency_s),
+                    "onset_s": json_number(ev.onset_s),
+                    "end_s": json_number(ev.end_s),
+                    "duration_s": json_number(ev.duration_s),
+                    "peak_dbfs": json_number(ev.peak_dbfs),
+                    "latency_s": json_number(ev.latency_s),
                     "method": ev.method,
                     "reason": ev.reason,
                 }
@@ -103,9 +104,9 @@ class RecordingResult:
                     "band_centres_hz": [round(float(c), 3) for c in f.band_centres_hz],
                     "slice_times_s": [round(float(t), 6) for t in f.slice_times_s],
                     "reference": f.reference,
-                    "dominant_hz": _num(f.dominant_hz),
-                    "centroid_hz": _num(f.centroid_hz),
-                    "band_energy_db": _num(f.band_energy_db),
+                    "dominant_hz": json_number(f.dominant_hz),
+                    "centroid_hz": json_number(f.centroid_hz),
+                    "band_energy_db": json_number(f.band_energy_db),
                     "padded_slices": int(f.padded_slices),
                 }
                 for name, f in self.features.items()
@@ -113,7 +114,7 @@ class RecordingResult:
         }
 
 
-def _num(x):
+def json_number(x):
     """JSON has no NaN or infinity: those become null."""
     if x is None:
         return None
@@ -173,16 +174,12 @@ def analyse_signals(
     notes: list[str] = []
 
     rate_ok = profile.sample_rate_min_hz <= fs <= profile.sample_rate_max_hz
-    qc = [
-        _quality.check_sample_rate(fs, min_hz=profile.sample_rate_min_hz, max_hz=profile.sample_rate_max_hz),
-        _quality.check_duration(mic.shape[0], sample_rate_hz=fs, min_duration_s=profile.min_duration_s),
-        _quality.check_silence(mic, min_rms_dbfs=q.min_rms_dbfs),
-        _quality.check_clipping(
-            mic, clip_level=q.clip_level, min_run=q.clip_min_run, max_fraction=q.max_clipped_fraction
-        ),
-        _quality.check_dropouts(mic, sample_rate_hz=fs, max_dropout_s=q.max_dropout_s),
-        _quality.check_dc_offset(mic, max_dc_offset=q.max_dc_offset),
-    ]
+    qc = list(_quality.run_quality_checks(
+        mic, sample_rate_hz=fs, sample_rate_min_hz=profile.sample_rate_min_hz,
+        sample_rate_max_hz=profile.sample_rate_max_hz, min_duration_s=profile.min_duration_s,
+        clip_level=q.clip_level, clip_min_run=q.clip_min_run, max_clipped_fraction=q.max_clipped_fraction,
+        max_dropout_s=q.max_dropout_s, max_dc_offset=q.max_dc_offset, min_rms_dbfs=q.min_rms_dbfs,
+    ))
 
     # Markers
     if markers_s is not None:
@@ -313,8 +310,6 @@ def analyse_file(
                 raise ProfileError(sidecar.path, f"its profile {profile!r} cannot be used: {exc.reason}") from None
             raise
     mic_index, marker_index, source = markers_for(audio.n_channels, profile, sidecar)
-    if mic_index >= audio.n_channels:
-        raise AudioError(path, f"microphone channel {mic_index} requested but the file has {audio.n_channels} channel(s)")
     return analyse_signals(
         audio.channel(mic_index),
         sample_rate_hz=info.sample_rate_hz,

@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import Any, Iterable
 
 from .errors import ProfileError
+from .signal.events import DETECTORS
 
 __all__ = [
     "BandSpec",
@@ -160,7 +161,7 @@ _EVENT_KEYS = {
     "name", "find", "marker", "window_s", "search_s", "after", "length_s", "slice_window_s", "slice_hop_s", "bands",
     "detector",
 }
-_DETECTORS = ("flux", "energy")
+_DETECTORS = DETECTORS  # the event finder's own list
 _WEIGHTINGS = ("none", "A")
 _BAND_KINDS = ("third_octave", "linear")
 _FINDS = ("marker", "onset")

@@ -20,7 +20,7 @@ import numpy as np
 from .errors import AnalysisError, ModelError
 from .modelfile import load_model, save_model
 from .monitor import ReferenceModel
-from .pipeline import RecordingResult, analyse_file
+from .pipeline import RecordingResult, analyse_file, json_number
 from .profiles import DeviceProfile, load_profile
 
 __all__ = [
@@ -144,14 +144,15 @@ def fit_event_model(
         "bands": {"kind": spec.bands.kind, "fmin_hz": spec.bands.fmin_hz, "fmax_hz": spec.bands.fmax_hz,
                   "n_bands": int(fs.X.shape[2]), "weighting": spec.bands.weighting},
         "created_at": datetime.now(timezone.utc).isoformat(timespec="seconds"),
-        "created_by": _user(),
+        "created_by": current_user(),
         "actuation_alpha": alpha,
     }
     model.metadata_ = meta  # what save() will store; load() restores it
     return model, meta
 
 
-def _user() -> str:
+def current_user() -> str:
+    """The login name of whoever runs this, for 'created by' fields ("unknown" when there is none)."""
     try:
         return getpass.getuser()
     except (KeyError, OSError):
@@ -242,10 +243,6 @@ def model_metadata_problem(model: ReferenceModel, result: RecordingResult, event
     return None
 
 
-def _num(x):
-    x = float(x)
-    return x if math.isfinite(x) else None
-
 
 def monitor_result(result: RecordingResult, models: dict[str, ReferenceModel]) -> dict:
     """JSON-ready monitoring per modelled event: statistics, limits, flag and plain-language reasons."""
@@ -257,7 +254,7 @@ def monitor_result(result: RecordingResult, models: dict[str, ReferenceModel]) -
             raise ModelError(f"{result.path}: {problem}")
         feats = result.features.get(event)
         entry = {
-            "t2_max": None, "t2_limit": _num(model.t2_limit_), "spe_max": None, "spe_limit": _num(model.spe_limit_),
+            "t2_max": None, "t2_limit": json_number(model.t2_limit_), "spe_max": None, "spe_limit": json_number(model.spe_limit_),
             "slices_outside": None, "trajectory_distance": None, "flagged": True, "reasons": [],
         }
         if feats is None:
@@ -270,12 +267,12 @@ def monitor_result(result: RecordingResult, models: dict[str, ReferenceModel]) -
             continue
         m = model.score(feats.levels_db[None, :, :])
         entry.update(
-            t2_max=_num(m.t2_max[0]), spe_max=_num(m.spe_max[0]), slices_outside=int(m.slices_outside[0]),
-            trajectory_distance=_num(m.trajectory_distance[0]),
-            t2_ratio=_num(m.t2_ratio[0]), spe_ratio=_num(m.spe_ratio[0]),
-            t2_ratio_threshold=_num(m.t2_ratio_threshold), spe_ratio_threshold=_num(m.spe_ratio_threshold),
-            distance_threshold=_num(m.distance_threshold),
-            event_spe_ratio=_num(m.event_spe_ratio[0]), event_spe_threshold=_num(m.event_spe_threshold),
+            t2_max=json_number(m.t2_max[0]), spe_max=json_number(m.spe_max[0]), slices_outside=int(m.slices_outside[0]),
+            trajectory_distance=json_number(m.trajectory_distance[0]),
+            t2_ratio=json_number(m.t2_ratio[0]), spe_ratio=json_number(m.spe_ratio[0]),
+            t2_ratio_threshold=json_number(m.t2_ratio_threshold), spe_ratio_threshold=json_number(m.spe_ratio_threshold),
+            distance_threshold=json_number(m.distance_threshold),
+            event_spe_ratio=json_number(m.event_spe_ratio[0]), event_spe_threshold=json_number(m.event_spe_threshold),
         )
         reasons = list(m.reasons(0)) + qc_reasons
         entry["flagged"] = bool(m.flagged[0]) or bool(qc_reasons)

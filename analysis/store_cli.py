@@ -167,9 +167,9 @@ def _reference(args) -> int:
                     "created_by", "created_at"]
             print(df[cols].to_string(index=False) if len(df) else "no reference models in the store")
         else:
-            from .store.reference import _user
+            from .scoring import current_user
 
-            store.activate_model(args.model, person=args.by or _user())
+            store.activate_model(args.model, person=args.by or current_user())
             print(f"model {args.model} is now active")
     return 0
 

@@ -7,7 +7,6 @@ same statistics for the same recording.
 
 from __future__ import annotations
 
-import getpass
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Iterable, Sequence
@@ -17,7 +16,7 @@ from sqlalchemy import and_, exists, select
 
 from analysis.monitor import ReferenceModel
 from analysis.profiles import load_profile
-from analysis.scoring import FeatureSet, fit_event_model
+from analysis.scoring import FeatureSet, current_user, fit_event_model
 
 from . import writes
 from .errors import StoreError
@@ -123,7 +122,7 @@ def build_reference(
     lots = [str(x).strip() for x in lots if str(x).strip()]
     if not lots:
         raise StoreError("reference build needs at least one lot (--lots L1,L2,...)")
-    who = created_by or _user()
+    who = created_by or current_user()
     made = []
     for event in names:
         fs = _feature_set(store, prof.name, event, lots)
@@ -233,10 +232,3 @@ def rescore(store, profile: str, *, events: Sequence[str] | None = None, model_i
                 writes.insert_scores(conn, mid, event, items)
             total += len(items)
     return total
-
-
-def _user() -> str:
-    try:
-        return getpass.getuser()
-    except (KeyError, OSError):
-        return "unknown"
