@@ -16,6 +16,7 @@ import scipy.signal
 __all__ = ["run", "bench_analyse", "bench_score"]
 
 
+
 def run(args) -> int:
     if args.bench_command == "analyse":
         bench_analyse(n_files=args.files, repeat=args.repeat)
@@ -77,6 +78,8 @@ def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
     from .demo import generate
     from .pipeline import analyse_file, band_layout
     from .profiles import load_profile
+    from .signal.events import ONSET_FRAME_S, ONSET_HOP_S
+    from .signal.spectra import slice_grid
 
     with tempfile.TemporaryDirectory(prefix="harken-bench-") as tmp:
         generate(tmp, scenario="small", seed=1234)
@@ -90,8 +93,8 @@ def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
         for path in files:
             res = analyse_file(path, profile=profile)
             fs = res.sample_rate_hz
-            n_flux = int(round(0.005 * fs))
-            n_hop = int(round(0.001 * fs))
+            n_flux = int(round(ONSET_FRAME_S * fs))  # the onset search's frames
+            n_hop = int(round(ONSET_HOP_S * fs))
             total = int(round(res.duration_s * fs))
             plan = [(n_flux, np.arange(0, max(total - n_flux, 0) + 1, n_hop))]
             pplan = []
@@ -101,9 +104,10 @@ def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
                 layout = band_layout(spec.bands)
                 pplan.append((n_win, hop, layout.lower_hz, layout.upper_hz))
                 ev = res.event(spec.name)
-                if ev.found:
-                    start = int(round(ev.onset_s * fs))
-                    plan.append((n_win, start + hop * np.arange(spec.n_slices)))
+                if ev.found:  # the very frames the feature step takes (signal.spectra.slice_grid)
+                    grid = slice_grid(onset_s=ev.onset_s, length_s=spec.length_s, slice_window_s=spec.slice_window_s,
+                                      slice_hop_s=spec.slice_hop_s, sample_rate_hz=fs, n_samples=total)
+                    plan.append((grid.n_window, np.asarray(grid.starts)))
             plans.append(plan)
             peer_plans.append(pplan)
 
@@ -183,7 +187,7 @@ def bench_score(*, n_actuations: int = 10_000, n_slices: int = 40, n_bands: int 
         "ratio_to_floor": t_ours / t_floor,
     }
     out(f"scored {n_actuations} actuations x {n_slices} slices x {n_bands} bands, {a} components (best of {repeat})")
-    out(f"score:  {t_ours * 1e3:.1f} ms (T², SPE, envelope, trajectory distance, actuation decision)")
-    out(f"floor:  {t_floor * 1e3:.1f} ms (scaling + the bare matrix products for scores, residuals, T², SPE)")
+    out(f"score:  {t_ours * 1e3:.3f} ms (T², SPE, envelope, trajectory distance, actuation decision)")
+    out(f"floor:  {t_floor * 1e3:.3f} ms (scaling + the bare matrix products for scores, residuals, T², SPE)")
     out(f"ratio_to_floor={result['ratio_to_floor']:.3f}")
     return result

@@ -343,7 +343,12 @@ def _event_end(x, fs, i0, n_length, n_frame, floor, start_db, end_db, n_min_dur,
 DETECTORS = ("flux", "energy")
 
 
-def onset_candidates(x, *, sample_rate_hz: float, frame_s: float = 0.005, hop_s: float = 0.001,
+#: Frame and hop of the onset search (s): a 5 ms frame resolves a click, a 1 ms hop is the timing goal.
+ONSET_FRAME_S = 0.005
+ONSET_HOP_S = 0.001
+
+
+def onset_candidates(x, *, sample_rate_hz: float, frame_s: float = ONSET_FRAME_S, hop_s: float = ONSET_HOP_S,
                      delta: float = 6.0, lambda_: float = 1.0, median_s: float = 0.05, min_gap_s: float = 0.02,
                      log_gamma: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """(onset times in s, strengths in robust SDs) of the whole signal, for find_event(..., onsets=...).
