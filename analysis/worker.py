@@ -157,8 +157,8 @@ def process_files(
 ) -> IngestSummary:
     """Register, analyse, archive (or quarantine) and store each (path, original name) of ``files``.
 
-    ``pool``: a ProcessPoolExecutor to analyse in (else one is made when ``jobs`` > 1, or analysis runs in this
-    process). ``remove_source``: delete each delivered file (and its sidecar) once its outcome is committed.
+    ``pool``: a ProcessPoolExecutor to analyse in, made by the caller before it opened the store (see make_pool);
+    None analyses in this process. ``jobs`` sizes the window of analyses in flight. ``remove_source``: delete each delivered file (and its sidecar) once its outcome is committed.
     Analysed recordings are committed in batches of up to ``batch_size`` (each recording whole; a batch waits at
     most ``batch_wait_s`` for more), so the store sees few, larger transactions.
     """
@@ -276,9 +276,6 @@ def process_files(
                 claim_hash.pop(p, None)
                 bar.step()
 
-    own_pool = None
-    if pool is None and jobs > 1:
-        own_pool = pool = make_pool(jobs)
     pending: dict = {}
     window = max(2, 2 * jobs)
     try:
@@ -334,8 +331,6 @@ def process_files(
         raise
     finally:
         bar.close()
-        if own_pool is not None:
-            own_pool.shutdown(cancel_futures=True)
     summary.elapsed_s = time.perf_counter() - t0
     return summary
 

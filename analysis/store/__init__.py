@@ -8,7 +8,7 @@ Public API:
   ``flag_summary``, ``flags``, ``models``, ``load_model``, ``active_models``, ``band_levels``, ``trajectory``,
   ``audit_log``, ``check_integrity``, ``schema_version``; ``read()`` / ``write()`` give a connection inside one
   transaction for queries of your own. Writes: ``claim``, ``claim_many``, ``commit_analyses``,
-  ``commit_analysis``, ``commit_quarantine``, ``reopen_quarantined``, ``release_claim``, ``add_verdict``,
+  ``commit_quarantine``, ``reopen_quarantined``, ``release_claim``, ``add_verdict``,
   ``activate_model``, ``audit``. ``archive_dir`` / ``quarantine_dir``: where originals are kept.
 - ``build_reference(store, profile, events, lots, *, created_by=None, profile_dirs=(), n_components=None,
   scaling="unit", alpha=0.01, log=...) -> list[ModelInfo]``: fit, store as the new active version, score history.

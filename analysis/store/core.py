@@ -201,12 +201,6 @@ class Store:
         with self.write() as conn:
             return writes.commit_analyses(conn, self._ids, list(items), worker=worker)
 
-    def commit_analysis(self, recording_id: int, *, worker: str, result, archive_path: str,
-                        scored: dict) -> int | None:
-        """Write every result of one analysed recording in one transaction; returns the actuation id, or None
-        when the claim was lost to another worker (nothing written)."""
-        return self.commit_analyses([writes.Analysed(recording_id, result, archive_path, scored)], worker=worker)[0]
-
     def commit_quarantine(self, recording_id: int, *, worker: str, reason: str, quarantine_path: str,
                           sidecar_json: str | None = None) -> bool:
         """Mark a claimed recording as quarantined with its reason; False when the claim was lost."""
