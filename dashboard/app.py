@@ -38,7 +38,6 @@ CAUTIONS = (
 )
 
 #: Players start at this fraction of full volume (assets/harken.js applies it to every audio element).
-START_VOLUME = 0.2
 
 
 @dataclass
@@ -195,5 +194,3 @@ def register_url_state(app: Dash, view_name: str, state) -> None:
                             *[Input(cid, prop) for _, cid, prop in state])
 
 
-def context_of(server: flask.Flask) -> AppContext:
-    return server.config["HARKEN_CONTEXT"]

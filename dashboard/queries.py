@@ -37,7 +37,7 @@ __all__ = [
     "Statistic", "STATISTICS", "statistic", "Filters", "choices", "lot_points", "actuation_cloud", "lot_actuations",
     "rig_summary", "rig_histogram", "latest_per_rig", "flags_for", "recent_quarantine", "triage_evidence",
     "actuation_detail", "typical_reference_actuation", "trajectories_for", "reference_lots_of", "models_table",
-    "store_counts", "lots_of_profile",
+    "store_counts_fast",
 ]
 
 
@@ -177,10 +177,6 @@ def choices(conn, profile: str | None = None) -> dict:
         "first_day": span[0].date() if span and span[0] else None,
         "last_day": span[1].date() if span and span[1] else None,
     }
-
-
-def lots_of_profile(conn, profile: str | None = None) -> list[str]:
-    return choices(conn, profile)["lots"]
 
 
 def reference_lots_of(conn, profile: str | None, event: str) -> list[str]:
@@ -580,16 +576,3 @@ def store_counts_fast(conn) -> dict:
     }
 
 
-def store_counts(conn) -> dict:
-    """Cheap counts for headers and cache keys: actuations, recordings, quarantined, flags, models, and the
-    largest ids (which change whenever anything is added)."""
-    return {
-        "actuations": conn.execute(select(func.count(actuations.c.id))).scalar() or 0,
-        "quarantined": conn.execute(select(func.count(recordings.c.id))
-                                    .where(recordings.c.status == "quarantined")).scalar() or 0,
-        "max_actuation": conn.execute(select(func.max(actuations.c.id))).scalar() or 0,
-        "max_flag": conn.execute(select(func.max(flags.c.id))).scalar() or 0,
-        "max_trajectory": conn.execute(select(func.max(trajectories.c.id))).scalar() or 0,
-        "models": conn.execute(select(func.count(reference_models.c.id))).scalar() or 0,
-        "active_models": tuple(_active_model_ids(conn)),
-    }

@@ -106,7 +106,7 @@ def register(app, ctx):
         return fig, chart_summary(chart, st)
 
     # A click on a single actuation navigates the way a dcc.Link does (push the address, tell dcc.Location);
-    # a click on a lot point lists the lot below the chart. click_target() is the same decision in Python.
+    # a click on a lot point lists the lot below the chart.
     app.clientside_callback(
         """
         function(click) {
@@ -130,21 +130,6 @@ def register(app, ctx):
     @app.callback(Output("lots-detail", "children"), Input("lots-selected", "data"), Input("lots-group", "value"))
     def show_lot(selected, group):
         return lot_detail(ctx.store, selected)
-
-
-def click_target(click):
-    """("actuation", id) or ("lot", lot, rig) from a chart click, or None."""
-    try:
-        cd = click["points"][0]["customdata"]
-    except (TypeError, KeyError, IndexError):
-        return None
-    if not cd:
-        return None
-    if cd[0] == "actuation":
-        return ("actuation", int(cd[1]))
-    if cd[0] == "lot":
-        return ("lot", str(cd[1]), str(cd[2]))
-    return None
 
 
 def lot_detail(store, selected):

@@ -63,6 +63,9 @@ def test_spectrogram_peak_at_tone_frequency():
     assert abs(peak - 3000.0) <= 2 * (freqs[1] - freqs[0])  # within two merged bins of the tone
     assert db.shape == (times.size, freqs.size) and times.size <= 480
     # mean-square scaling: a sine of amplitude A sums to A²/2 over the bins (Parseval; Heinzel et al. 2002)
+    # (241 bins here, below max_bins, so no bins were merged by their maximum)
+    assert freqs.size < 257
+    np.testing.assert_allclose((10 ** (db / 10)).sum(axis=1), 0.5**2 / 2, rtol=1e-6)
 
 
 def test_rig_figures_and_empty_states():
