@@ -139,7 +139,8 @@ def lot_chart_summary(table: pd.DataFrame, event: str) -> list[str]:
     The point is the mean over a lot's actuations on one rig of log(event residual ratio) (the residual of the
     event's mean spectrum over its reference median): a lasting change that single actuations cannot show moves
     the mean of a lot. Phase I limits come from the reference lots' points (NIST e-Handbook 6.3.2.2: centre
-    ± 3·MR̄/d2); new points are checked against them and by the Western Electric rules, rig by rig in time order.
+    ± 3·MR̄/d2, moving ranges within each rig); new points are checked against them and by the Western
+    Electric rules, rig by rig in time order.
     A lot beyond the limits on most rigs suggests the lot; a rig beyond them on several lots suggests the rig.
     """
     from .monitor import WESTERN_ELECTRIC, check_rules, fit_individuals_limits
@@ -156,7 +157,9 @@ def lot_chart_summary(table: pd.DataFrame, event: str) -> list[str]:
     ref = points[points["reference"]]
     if len(ref) < 3:
         return [f"{event}: too few reference points ({len(ref)}) for lot-by-lot limits"]
-    limits = fit_individuals_limits(ref["value"].to_numpy())
+    # time order rig by rig: a rig's offset is not variation between successive lots (same as the Lots view)
+    ref = ref.sort_values(["rig", "first"])
+    limits = fit_individuals_limits(ref["value"].to_numpy(), groups=ref["rig"].to_numpy())
     points["beyond"] = points["value"] > limits.ucl
     points["rules"] = ""
     for rig in points["rig"].unique():

@@ -67,19 +67,8 @@ def lot_chart(points: pd.DataFrame, *, reference_lots=(), log: bool = False, rul
         # Limits from the points in time order, rig by rig, so a rig's offset is not counted as variation
         # between successive lots; the moving ranges of all rigs are pooled.
         ordered = basis.sort_values(["rig", "first"]) if "first" in basis else basis.sort_values("rig")
-        mrs = []
-        for _, g in ordered.groupby("rig", sort=False):
-            v = g["y"].to_numpy(dtype=float)
-            mrs.append(np.abs(np.diff(v)))
-        mr = np.concatenate(mrs) if mrs else np.array([])
-        if mr.size:
-            lim = fit_individuals_limits(basis["y"].to_numpy(dtype=float))
-            sigma = float(mr.mean()) / (2.0 / math.sqrt(math.pi))  # d2(2) = 2/√π
-            centre, ucl, lcl = lim.centre, lim.centre + 3 * sigma, lim.centre - 3 * sigma
-        else:
-            lim = fit_individuals_limits(basis["y"].to_numpy(dtype=float)) if len(basis) >= 2 else None
-            if lim is not None:
-                centre, ucl, lcl, sigma = lim.centre, lim.ucl, lim.lcl, lim.sigma
+        lim = fit_individuals_limits(ordered["y"].to_numpy(dtype=float), groups=ordered["rig"].to_numpy())
+        centre, ucl, lcl, sigma = lim.centre, lim.ucl, lim.lcl, lim.sigma
     finite = np.isfinite(p["y"].astype(float)) if len(p) else pd.Series(dtype=bool)
     p["beyond"] = finite & ((p["y"] > ucl) | (p["y"] < lcl)) if math.isfinite(ucl) else False
     p["rules"] = ""

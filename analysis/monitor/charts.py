@@ -86,11 +86,24 @@ class IndividualsLimits:
         return IndividualsChart(v, mr, self, (v > self.ucl) | (v < self.lcl), np.nan_to_num(mr) > self.mr_ucl)
 
 
-def fit_individuals_limits(values):
-    """Phase I individuals and moving-range limits from reference values (NIST e-Handbook 6.3.2.2)."""
+def fit_individuals_limits(values, *, groups=None):
+    """Phase I individuals and moving-range limits from reference values (NIST e-Handbook 6.3.2.2).
+
+    groups: one label per value (e.g. the rig of each lot point). The moving ranges are then taken within each
+    group, in the order given, and pooled, so an offset between groups is not counted as point-to-point
+    variation; when no group has two values, the moving ranges of the whole sequence are used.
+    """
     v = _values(values, minimum=2)
-    sigma, mr_bar = _mr_sigma(v)
     centre = float(v.mean())
+    sigma, mr_bar = _mr_sigma(v)
+    if groups is not None:
+        g = np.asarray(groups)
+        if g.shape != v.shape:
+            raise ParameterError(f"groups must have one label per value, shape {v.shape}; got {g.shape}")
+        mr = np.concatenate([np.abs(np.diff(v[g == label])) for label in dict.fromkeys(g.tolist())])
+        if mr.size:
+            mr_bar = float(mr.mean())
+            sigma = mr_bar / _D2_2
     return IndividualsLimits(centre, sigma, centre + 3 * sigma, centre - 3 * sigma, mr_bar, _D4_2 * mr_bar, 0.0,
                              v.size)
 

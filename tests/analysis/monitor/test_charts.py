@@ -177,3 +177,23 @@ def test_xbar_s_phase2_and_errors():
         xbar_s_chart([1.0, 2.0, 3.0], ["a", "a", "b"])
     with pytest.raises(ParameterError, match="lam must be a number with 0 < lam <= 1; got 0"):
         ewma_chart([1.0, 2.0], lam=0)
+
+
+def test_individuals_limits_pool_moving_ranges_within_groups():
+    # Two rigs offset by 10: within each rig the moving ranges are |2-1|, |4-2| and |13-11|, |12-13|, so
+    # MR-bar = (1 + 2 + 2 + 1)/4 = 1.5 and sigma = MR-bar/d2(2) with d2(2) = 1.128 (ASTM E2587 table);
+    # across the offset the plain sequence would also count |11-4| = 7.
+    from analysis.monitor import fit_individuals_limits
+
+    values = [1.0, 2.0, 4.0, 11.0, 13.0, 12.0]
+    rigs = ["A", "A", "A", "B", "B", "B"]
+    lim = fit_individuals_limits(values, groups=rigs)
+    assert lim.mr_bar == pytest.approx(1.5)
+    assert lim.sigma == pytest.approx(1.5 / 1.128, rel=1e-3)
+    assert lim.centre == pytest.approx(np.mean(values))
+    plain = fit_individuals_limits(values)
+    assert plain.mr_bar == pytest.approx((1 + 2 + 7 + 2 + 1) / 5)
+    one_each = fit_individuals_limits([1.0, 5.0], groups=["A", "B"])  # no group has two: whole sequence
+    assert one_each.mr_bar == pytest.approx(4.0)
+    with pytest.raises(ParameterError, match="groups must have one label per value"):
+        fit_individuals_limits(values, groups=rigs[:3])
