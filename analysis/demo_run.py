@@ -16,6 +16,7 @@ import pandas as pd
 
 from .errors import AnalysisError
 from .io import read_sidecar
+from .triage import lot_rigs_signalling, rig_lots_signalling
 
 __all__ = ["run", "run_demo"]
 
@@ -141,7 +142,7 @@ def lot_chart_summary(table: pd.DataFrame, event: str) -> list[str]:
     the mean of a lot. Phase I limits come from the reference lots' points (NIST e-Handbook 6.3.2.2: centre
     ± 3·MR̄/d2, moving ranges within each rig); new points are checked against them and by the Western
     Electric rules, rig by rig in time order.
-    A lot beyond the limits on most rigs suggests the lot; a rig beyond them on several lots suggests the rig.
+    Which lot or rig is suggested follows analysis.triage (the rule the dashboard's flags use too).
     """
     from .monitor import WESTERN_ELECTRIC, check_rules, fit_individuals_limits
 
@@ -172,16 +173,16 @@ def lot_chart_summary(table: pd.DataFrame, event: str) -> list[str]:
     new = points[~points["reference"]]
     lines = [f"lot-by-lot chart, {event} (mean log event residual per lot and rig; UCL {limits.ucl:.2f} from "
              f"{len(ref)} reference points; Western Electric rules per rig):"]
-    n_rigs = points["rig"].nunique()
     explained = set()
     for lot, grp in new.groupby("lot", sort=False):
-        hit = grp.loc[grp["signal"], "rig"].tolist()
-        if len(hit) >= max(2, (n_rigs + 1) // 2):
+        hit = lot_rigs_signalling(new, lot)
+        if hit:
             lines.append(f"  lot {lot}: signals on {len(hit)} of {len(grp)} rigs -> suggests the lot")
             explained |= {(r, lot) for r in hit}
-    for rig, grp in new.groupby("rig", sort=False):
-        hit = [lot for lot in grp.loc[grp["signal"], "lot"] if (rig, lot) not in explained]
-        if len(hit) >= 2:
+    for rig in new["rig"].unique():
+        unexplained = new[(new["rig"] == rig) & ~new["lot"].map(lambda lot, r=rig: (r, lot) in explained)]
+        hit = rig_lots_signalling(unexplained, rig)
+        if hit:
             lines.append(f"  rig {rig}: signals on lots {', '.join(hit)} -> suggests the rig")
             explained |= {(rig, lot) for lot in hit}
     for row in new[new["signal"]].itertuples():

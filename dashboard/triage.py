@@ -15,6 +15,8 @@ import math
 
 import pandas as pd
 
+from analysis.triage import lot_rigs_signalling, rig_lots_signalling
+
 __all__ = ["STATISTIC_WORDS", "describe_flag", "suggest_cause", "CAUSES", "actuation_state"]
 
 CAUSES = ("recording", "rig", "lot", "unit")
@@ -62,15 +64,15 @@ def suggest_cause(statistics, *, lot: str, rig: str, evidence: pd.DataFrame,
     if qc:
         return "recording", f"the recording failed its quality check(s): {', '.join(qc)}"
     e = _signals(evidence, min_fraction) if len(evidence) else pd.DataFrame(columns=["lot", "rig", "signal"])
-    on_lot = e[e["lot"] == lot]
-    lot_rigs = sorted(on_lot.loc[on_lot["signal"], "rig"])
-    if len(lot_rigs) >= 2 and len(lot_rigs) >= math.ceil(on_lot["rig"].nunique() / 2):
-        return "lot", (f"lot {lot} flags on {len(lot_rigs)} of {on_lot['rig'].nunique()} rigs "
+    lot_rigs = lot_rigs_signalling(e, lot)
+    if lot_rigs:
+        return "lot", (f"lot {lot} flags on {len(lot_rigs)} of {e.loc[e['lot'] == lot, 'rig'].nunique()} rigs "
                        f"({', '.join(lot_rigs)})")
-    on_rig = e[e["rig"] == rig]
-    rig_lots = sorted(on_rig.loc[on_rig["signal"], "lot"])
-    if len(rig_lots) >= 2:
-        return "rig", f"rig {rig} flags in {len(rig_lots)} of its {on_rig['lot'].nunique()} recent lots ({', '.join(rig_lots)})"
+    rig_lots = rig_lots_signalling(e, rig)
+    if rig_lots:
+        rig_lots = sorted(rig_lots)
+        return "rig", (f"rig {rig} flags in {len(rig_lots)} of its {e.loc[e['rig'] == rig, 'lot'].nunique()} recent "
+                       f"lots ({', '.join(rig_lots)})")
     return "unit", f"only this unit's actuations flag (lot {lot} does not flag across rigs, rig {rig} not across lots)"
 
 
