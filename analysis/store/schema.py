@@ -1,17 +1,17 @@
-"""The results store's tables (SQLAlchemy Core) and the versioned create/upgrade step.
+"""The results store's tables (SQLAlchemy Core).
 
 One schema serves SQLite and PostgreSQL. Times are stored as naive UTC datetimes (SQLite has no time zone type);
 the sidecar's own ``recorded_at`` text, with its UTC offset, is kept beside it. Arrays are compact bytes:
 band levels, scores, T² and SPE as little-endian float32 with their shape in integer columns; slice times and
 band centres as float64 (they are axes, few values, and must compare exactly).
 
-``SCHEMA_VERSION`` is the version this Harken writes. ``MIGRATIONS[v]`` upgrades a store of version v to v + 1;
-a store newer than this Harken is refused with a message that says so.
+The database gets its tables from the Alembic revisions in migrations/ (see migrate.py), not from these
+definitions: a change here needs a new revision, which ``compare_metadata`` in the tests holds to it.
 """
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 from sqlalchemy import (  # noqa: I001
     Boolean,
@@ -27,13 +27,9 @@ from sqlalchemy import (  # noqa: I001
     Table,
     Text,
     UniqueConstraint,
-    inspect,
-    select,
 )
 
-__all__ = ["SCHEMA_VERSION", "MIGRATIONS", "metadata", "TABLES", "ensure_schema", "utc_now"]
-
-SCHEMA_VERSION = 1
+__all__ = ["metadata", "TABLES", "utc_now"]
 
 metadata = MetaData()
 
@@ -238,73 +234,7 @@ audit_log = Table(
 
 TABLES = {t.name: t for t in metadata.sorted_tables}
 
-#: The audit log refuses UPDATE and DELETE in the database itself, not only by convention of this code.
-_APPEND_ONLY_DDL = {
-    "sqlite": [
-        "CREATE TRIGGER audit_log_no_update BEFORE UPDATE ON audit_log "
-        "BEGIN SELECT RAISE(ABORT, 'the audit log is append-only'); END",
-        "CREATE TRIGGER audit_log_no_delete BEFORE DELETE ON audit_log "
-        "BEGIN SELECT RAISE(ABORT, 'the audit log is append-only'); END",
-    ],
-    "postgresql": [
-        "CREATE FUNCTION harken_audit_log_append_only() RETURNS trigger LANGUAGE plpgsql AS "
-        "$$ BEGIN RAISE EXCEPTION 'the audit log is append-only'; END $$",
-        "CREATE TRIGGER audit_log_append_only BEFORE UPDATE OR DELETE ON audit_log "
-        "FOR EACH ROW EXECUTE FUNCTION harken_audit_log_append_only()",
-    ],
-}
-
-#: MIGRATIONS[v](connection) upgrades a version-v store to v + 1 (none yet: version 1 is the first).
-MIGRATIONS: dict = {}
-
 
 def utc_now() -> datetime:
     """Now as a naive UTC datetime (how the store keeps times), to the microsecond."""
-    return datetime.now(timezone.utc).replace(tzinfo=None)
-
-
-def ensure_schema(conn, *, where: str, known_version: int = SCHEMA_VERSION, harken_version: str = "") -> int:
-    """Create the tables in an empty database, upgrade an older store, refuse a newer or foreign one.
-
-    ``where`` names the store (URL without password) in error messages. Returns the schema version found before
-    any upgrade (0 for a new store). Runs inside the caller's transaction.
-    """
-    from .errors import StoreError
-
-    names = set(inspect(conn).get_table_names())
-    if not names:
-        metadata.create_all(conn)
-        for ddl in _APPEND_ONLY_DDL.get(conn.dialect.name, []):
-            conn.exec_driver_sql(ddl)
-        conn.execute(store_info.insert(), [
-            {"key": "schema_version", "value": str(known_version)},
-            {"key": "created_by_harken", "value": harken_version},
-            {"key": "created_at", "value": utc_now().isoformat(timespec="seconds") + "Z"},
-        ])
-        return 0
-    if "store_info" not in names:
-        raise StoreError(f"{where}: not a Harken store (it has tables {', '.join(sorted(names)[:5])}"
-                         f"{' ...' if len(names) > 5 else ''} but no store_info table)")
-    row = conn.execute(select(store_info.c.value).where(store_info.c.key == "schema_version")).first()
-    try:
-        found = int(row[0]) if row is not None else None
-    except ValueError:
-        found = None
-    if found is None:
-        raise StoreError(f"{where}: not a Harken store, or a damaged one (no readable schema_version)")
-    if found > known_version:
-        raise StoreError(
-            f"{where}: the store has schema version {found}, this Harken knows versions up to {known_version}; "
-            "it was made by a newer Harken, so upgrade Harken to open it"
-        )
-    for v in range(found, known_version):
-        step = MIGRATIONS.get(v)
-        if step is None:
-            raise StoreError(f"{where}: no upgrade from schema version {v} to {v + 1} (store too old to open)")
-        step(conn)
-    if found < known_version:
-        conn.execute(store_info.update().where(store_info.c.key == "schema_version").values(value=str(known_version)))
-    missing = [t for t in TABLES if t not in inspect(conn).get_table_names()]
-    if missing:
-        raise StoreError(f"{where}: schema version {found} store lacks table(s) {', '.join(missing)} (damaged?)")
-    return found
+    return datetime.now(UTC).replace(tzinfo=None)

@@ -1,14 +1,19 @@
-"""Opening a store: versioned create step, refusing newer or foreign databases, URLs in errors, SQLite settings."""
+"""Opening a store: migrations to the newest revision, refusing newer or foreign databases, URLs in errors, SQLite
+settings."""
 
 from __future__ import annotations
 
+import re
+import shutil
 import sqlite3
+from pathlib import Path
 
 import pytest
-from sqlalchemy import create_engine, inspect, text
+from sqlalchemy import inspect
 
-from analysis.store import SCHEMA_VERSION, Store, StoreError, safe_url
-from analysis.store.schema import TABLES, ensure_schema, store_info
+from analysis.store import SCHEMA_VERSION, Store, StoreError, migrate, safe_url
+from analysis.store.migrate import MIGRATIONS_DIR
+from analysis.store.schema import TABLES, store_info
 
 
 def test_a_new_store_has_every_table_and_the_current_version(store_url, tmp_path):
@@ -57,42 +62,122 @@ def test_a_file_that_is_not_a_database(tmp_path):
         Store.open(path)
 
 
-def test_an_older_store_is_upgraded_step_by_step(tmp_path):
-    """ensure_schema runs MIGRATIONS[v] for each version below the one it knows, then records the new version."""
-    engine = create_engine(f"sqlite:///{tmp_path / 'old.db'}")
-    with engine.begin() as conn:
-        assert ensure_schema(conn, where="old.db", known_version=1) == 0
-    calls = []
+#: Revisions after this Harken's newest, as a later Harken would ship them: frozen, ALTERs in batch mode (on
+#: SQLite an ALTER where it can, else a copy of the table; on PostgreSQL an ALTER).
+_LATER_STEPS = {
+    "add_sites_country": (
+        'with op.batch_alter_table("sites") as batch_op:\n'
+        '        batch_op.add_column(sa.Column("country", sa.Text(), nullable=True))'
+    ),
+    "index_sites_country": 'op.create_index("ix_sites_country", "sites", ["country"])',
+    # Changes a column of the table that rigs and actuations point at: SQLite can only do that by a copy of the
+    # table (batch mode: create, copy, drop, rename), PostgreSQL by an ALTER.
+    "rebuild_sites": (
+        'with op.batch_alter_table("sites") as batch_op:\n'
+        '        batch_op.add_column(sa.Column("region", sa.Text(), nullable=True))\n'
+        '        batch_op.alter_column("name", existing_type=sa.Text(), nullable=True)'
+    ),
+    "fails": 'op.execute("CREATE TABLE scratch (id INTEGER)")\n    op.execute("SELECT * FROM no_such_table")',
+}
+_REVISION = '''import sqlalchemy as sa
+from alembic import op
 
-    def step(conn):
-        calls.append(1)
-        conn.execute(text("ALTER TABLE sites ADD COLUMN country TEXT"))
-
-    import analysis.store.schema as schema
-
-    saved = dict(schema.MIGRATIONS)
-    schema.MIGRATIONS[1] = step
-    try:
-        with engine.begin() as conn:
-            assert ensure_schema(conn, where="old.db", known_version=2) == 1
-        with engine.begin() as conn:
-            assert ensure_schema(conn, where="old.db", known_version=2) == 2  # already upgraded: no step
-    finally:
-        schema.MIGRATIONS.clear()
-        schema.MIGRATIONS.update(saved)
-    assert calls == [1]
-    assert "country" in {c["name"] for c in inspect(engine).get_columns("sites")}
-    engine.dispose()
+revision = "{rev}"
+down_revision = "{down}"
+branch_labels = None
+depends_on = None
 
 
-def test_an_older_store_without_an_upgrade_path_says_so(tmp_path):
-    engine = create_engine(f"sqlite:///{tmp_path / 'old.db'}")
-    with engine.begin() as conn:
-        ensure_schema(conn, where="old.db", known_version=1)
-    with pytest.raises(StoreError, match=r"old\.db: no upgrade from schema version 1 to 2"):
-        with engine.begin() as conn:
-            ensure_schema(conn, where="old.db", known_version=2)
-    engine.dispose()
+def upgrade():
+    {body}
+'''
+
+
+def _later(n: int) -> str:
+    """The id of the n-th revision after this Harken's newest."""
+    return f"{migrate.SCHEMA_VERSION + n:04d}"
+
+
+def _later_migrations(tmp_path, steps) -> Path:
+    """A copy of this Harken's migrations folder with revisions ``steps`` (names of _LATER_STEPS) after its head."""
+    folder = tmp_path / "migrations"
+    shutil.copytree(MIGRATIONS_DIR, folder, ignore=shutil.ignore_patterns("__pycache__"))
+    down = migrate.HEAD
+    for n, step in enumerate(steps, start=1):
+        rev = _later(n)
+        (folder / "versions" / f"{rev}_{step}.py").write_text(_REVISION.format(rev=rev, down=down,
+                                                                                body=_LATER_STEPS[step]))
+        down = rev
+    return folder
+
+
+def test_an_older_store_is_upgraded_step_by_step(store_url, tmp_path):
+    """A store with data, opened by a Harken whose folder has two more revisions: they run in order (the second
+    needs the first's column), inside the caller's write transaction (Harken's engine: BEGIN IMMEDIATE, foreign
+    keys on), and once."""
+    later = _later_migrations(tmp_path, ["add_sites_country", "index_sites_country"])
+    with Store.open(store_url, files_dir=tmp_path) as store:
+        store.audit(person="ana", action="test.mark", target="x")
+        with store.write() as conn:
+            conn.exec_driver_sql("INSERT INTO sites (name) VALUES ('Northfield')")
+            assert migrate.upgrade(conn, where=store.url, create=False, harken_version="",
+                                   script_location=later) == migrate.HEAD
+        with store.write() as conn:
+            assert migrate.upgrade(conn, where=store.url, create=False, harken_version="",
+                                   script_location=later) == _later(2)  # already there: nothing to do
+        with store.read() as conn:
+            assert conn.exec_driver_sql("SELECT version_num FROM alembic_version").scalar() == _later(2)
+            assert conn.exec_driver_sql("SELECT name, country FROM sites").fetchall() == [("Northfield", None)]
+            assert "ix_sites_country" in {ix["name"] for ix in inspect(conn).get_indexes("sites")}
+        assert store.schema_version() == SCHEMA_VERSION + 2
+        assert list(store.audit_log()["action"]) == ["test.mark"]
+
+
+def test_opening_upgrades_a_store_with_a_revision_that_rebuilds_a_referenced_table(store_url, tmp_path):
+    """SQLite checks foreign keys at the end of the upgrade, not at each step of a table copy (a rebuilt table that
+    others point at would be refused on the spot), and the connections keep foreign keys on afterwards."""
+    later = _later_migrations(tmp_path, ["rebuild_sites"])
+    with Store.open(store_url, files_dir=tmp_path) as store:
+        with store.write() as conn:
+            conn.exec_driver_sql("INSERT INTO sites (id, name) VALUES (7, 'Northfield')")
+            conn.exec_driver_sql("INSERT INTO rigs (site_id, name) VALUES (7, 'NF-R1')")
+    with Store.open(store_url, files_dir=tmp_path, migrations=later) as store:
+        with store.read() as conn:
+            assert conn.exec_driver_sql("SELECT version_num FROM alembic_version").scalar() == _later(1)
+            assert conn.exec_driver_sql("SELECT s.name, s.region, r.name FROM rigs r JOIN sites s ON s.id = "
+                                        "r.site_id").fetchall() == [("Northfield", None, "NF-R1")]
+            if store.dialect == "sqlite":
+                assert conn.exec_driver_sql("PRAGMA foreign_keys").scalar() == 1
+        with pytest.raises(StoreError, match="write failed"):  # still enforced: a rig of a site that is not there
+            with store.write() as conn:
+                conn.exec_driver_sql("INSERT INTO rigs (site_id, name) VALUES (999, 'nowhere')")
+
+
+def test_a_failing_upgrade_leaves_the_store_as_it_was(store_url, tmp_path):
+    """Alembic runs in the caller's transaction and commits nothing itself: a step that fails undoes them all."""
+    later = _later_migrations(tmp_path, ["add_sites_country", "fails"])
+    with Store.open(store_url, files_dir=tmp_path) as store:
+        with pytest.raises(StoreError, match=r"write failed: .*no_such_table"):
+            with store.write() as conn:
+                migrate.upgrade(conn, where=store.url, create=False, harken_version="", script_location=later)
+        with store.read() as conn:
+            assert conn.exec_driver_sql("SELECT version_num FROM alembic_version").scalar() == migrate.HEAD
+            assert "country" not in {c["name"] for c in inspect(conn).get_columns("sites")}
+            assert "scratch" not in inspect(conn).get_table_names()
+        assert store.schema_version() == SCHEMA_VERSION
+
+
+def test_a_store_at_a_revision_this_harken_does_not_know_is_refused(store_url, tmp_path):
+    """What a store upgraded by a newer Harken looks like to this one: refused, naming both revisions."""
+    later = _later_migrations(tmp_path, ["add_sites_country"])
+    with Store.open(store_url, files_dir=tmp_path) as store:
+        with store.write() as conn:
+            migrate.upgrade(conn, where=store.url, create=False, harken_version="", script_location=later)
+    with pytest.raises(StoreError, match=rf"^{re.escape(safe_url(store_url))}: the store is at schema revision "
+                                         rf"{_later(1)}, which this Harken does not know \(its newest is "
+                                         rf"{migrate.HEAD}\); it was made by a newer Harken, so upgrade Harken to "
+                                         r"open it$"):
+        Store.open(store_url, files_dir=tmp_path)
 
 
 def test_sqlite_runs_in_wal_mode_with_a_busy_timeout(sqlite_url):
