@@ -31,6 +31,8 @@ __all__ = [
     "audio_info",
     "read_audio",
     "sidecar_path",
+    "is_recording",
+    "AUDIO_SUFFIXES",
     "read_sidecar",
     "parse_sidecar",
     "SIDECAR_FIELDS",
@@ -157,7 +159,8 @@ def _decode(handle: sf.SoundFile, info: AudioInfo, path: Path, start_s, stop_s) 
             handle.seek(first)
         samples = handle.read(wanted, dtype="float32", always_2d=True)
     except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
-        raise AudioError(path, f"decoding failed after the header was read ({exc}); the file may be truncated") from None
+        raise AudioError(path, f"decoding failed after the header was read ({exc}); "
+                               "the file may be truncated") from None
     if samples.shape[0] < wanted:
         raise AudioError(
             path,
@@ -231,6 +234,17 @@ class Sidecar:
         return out
 
 
+#: File name endings taken for recordings when folders are searched (any libsndfile format can be named directly).
+AUDIO_SUFFIXES = (".flac", ".wav", ".aif", ".aiff", ".ogg", ".w64", ".caf")
+
+
+def is_recording(path) -> bool:
+    """Whether a file found in a folder is taken for a recording: a regular file with an audio ending whose name
+    does not start with a dot (hidden files are partial uploads or a copier's temporary files)."""
+    p = Path(path)
+    return p.suffix.lower() in AUDIO_SUFFIXES and not p.name.startswith(".") and p.is_file()
+
+
 def sidecar_path(recording_path) -> Path:
     """The sidecar that belongs to a recording: ``<stem>.json`` in the same folder."""
     p = Path(recording_path)
@@ -253,7 +267,8 @@ def read_sidecar(path) -> Sidecar:
     try:
         obj = json.loads(text)
     except json.JSONDecodeError as exc:
-        raise SidecarError(path, f"sidecar is not valid JSON ({exc.msg} at line {exc.lineno} column {exc.colno})") from None
+        raise SidecarError(path, f"sidecar is not valid JSON ({exc.msg} at line {exc.lineno} "
+                                 f"column {exc.colno})") from None
     return parse_sidecar(obj, source=path)
 
 
@@ -300,7 +315,8 @@ def parse_sidecar(obj: Any, *, source) -> Sidecar:
     if obj.get("channels") is not None:
         raw = obj["channels"]
         if not isinstance(raw, dict):
-            raise SidecarError(source, f"field 'channels' must be an object like {{\"mic\": 0}}, got {raw!r}", field="channels")
+            raise SidecarError(source, f"field 'channels' must be an object like {{\"mic\": 0}}, got {raw!r}",
+                               field="channels")
         channels = {}
         for role, index in raw.items():
             if role not in _CHANNEL_ROLES:

@@ -1,30 +1,30 @@
 """Reference models from recordings, and monitoring of analysed recordings against them.
 
 The composition of analysis.pipeline (recording -> band features) with analysis.monitor (features -> statistics).
-A model folder holds one model per event, ``<event>.json`` + ``<event>.npz`` (analysis.monitor's format).
+A model folder holds one model per event, ``<event>.json`` + ``<event>.npz`` (read and written by
+analysis.modelfile; the documents are ReferenceModel's own).
 """
 
 from __future__ import annotations
 
 import getpass
-import math
 import os
+from collections.abc import Callable, Iterable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
-from typing import Callable, Iterable, Sequence
 
 import numpy as np
 
 from .errors import AnalysisError, ModelError
+from .io import is_recording
 from .modelfile import load_model, save_model
 from .monitor import ReferenceModel
 from .pipeline import RecordingResult, analyse_file, json_number
 from .profiles import DeviceProfile, load_profile
 
 __all__ = [
-    "AUDIO_SUFFIXES",
     "FeatureSet",
     "find_recordings",
     "analyse_many",
@@ -36,15 +36,13 @@ __all__ = [
     "model_metadata_problem",
 ]
 
-AUDIO_SUFFIXES = (".flac", ".wav", ".aif", ".aiff", ".ogg", ".w64", ".caf")
-
-
 def find_recordings(paths: Iterable[str | Path]) -> list[Path]:
-    """Recordings named directly or found (recursively) in folders, sorted; a missing path is an error."""
+    """Recordings named directly, or found in folders (recursively, analysis.io.is_recording: the worker's rule),
+    sorted; a missing path is an error."""
     out: list[Path] = []
     for p in map(Path, paths):
         if p.is_dir():
-            out.extend(sorted(q for q in p.rglob("*") if q.suffix.lower() in AUDIO_SUFFIXES and q.is_file()))
+            out.extend(sorted(q for q in p.rglob("*") if is_recording(q)))
         elif p.is_file():
             out.append(p)
         else:
@@ -143,7 +141,7 @@ def fit_event_model(
         "length_s": spec.length_s,
         "bands": {"kind": spec.bands.kind, "fmin_hz": spec.bands.fmin_hz, "fmax_hz": spec.bands.fmax_hz,
                   "n_bands": int(fs.X.shape[2]), "weighting": spec.bands.weighting},
-        "created_at": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "created_at": datetime.now(UTC).isoformat(timespec="seconds"),
         "created_by": current_user(),
         "actuation_alpha": alpha,
     }
@@ -254,7 +252,8 @@ def monitor_result(result: RecordingResult, models: dict[str, ReferenceModel]) -
             raise ModelError(f"{result.path}: {problem}")
         feats = result.features.get(event)
         entry = {
-            "t2_max": None, "t2_limit": json_number(model.t2_limit_), "spe_max": None, "spe_limit": json_number(model.spe_limit_),
+            "t2_max": None, "t2_limit": json_number(model.t2_limit_), "spe_max": None,
+            "spe_limit": json_number(model.spe_limit_),
             "slices_outside": None, "trajectory_distance": None, "flagged": True, "reasons": [],
         }
         if feats is None:
@@ -270,7 +269,8 @@ def monitor_result(result: RecordingResult, models: dict[str, ReferenceModel]) -
             t2_max=json_number(m.t2_max[0]), spe_max=json_number(m.spe_max[0]), slices_outside=int(m.slices_outside[0]),
             trajectory_distance=json_number(m.trajectory_distance[0]),
             t2_ratio=json_number(m.t2_ratio[0]), spe_ratio=json_number(m.spe_ratio[0]),
-            t2_ratio_threshold=json_number(m.t2_ratio_threshold), spe_ratio_threshold=json_number(m.spe_ratio_threshold),
+            t2_ratio_threshold=json_number(m.t2_ratio_threshold),
+            spe_ratio_threshold=json_number(m.spe_ratio_threshold),
             distance_threshold=json_number(m.distance_threshold),
             event_spe_ratio=json_number(m.event_spe_ratio[0]), event_spe_threshold=json_number(m.event_spe_threshold),
         )

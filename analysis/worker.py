@@ -15,18 +15,17 @@ import shutil
 import socket
 import sys
 import time
+from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import dataclass, field
 from multiprocessing import get_context
 from pathlib import Path
-from typing import Callable, Iterable, Iterator
 
 from .errors import AnalysisError
-from .io import sidecar_path
-from .scoring import AUDIO_SUFFIXES
+from .io import is_recording, sidecar_path
 
 __all__ = ["IngestSummary", "ingest_paths", "run_worker", "process_files", "find_inbox_files", "content_hash",
-           "DEFAULT_CLAIM_TIMEOUT_S"]
+           "make_pool", "jobs_or_cores", "DEFAULT_CLAIM_TIMEOUT_S"]
 
 #: A claim older than this is taken to belong to a dead worker (analysis of one recording takes well under 1 s).
 DEFAULT_CLAIM_TIMEOUT_S = 300.0
@@ -54,8 +53,13 @@ class IngestSummary:
 
     def __str__(self):
         rate = self.analysed / self.elapsed_s if self.elapsed_s > 0 else 0.0
-        return (f"{self.analysed} analysed, {self.quarantined} quarantined, {self.duplicates} already stored, "
-                f"{self.busy} claimed by another worker in {self.elapsed_s:.1f} s ({rate:.1f} recordings/s)")
+        text = (f"{self.analysed} analysed, {self.quarantined} quarantined, {self.duplicates} already stored, "
+                f"{self.busy} claimed by another worker")
+        if self.lost:
+            text += f", {self.lost} taken over by another worker while analysed"
+        if self.vanished:
+            text += f", {self.vanished} gone from the inbox before they were read"
+        return text + f" in {self.elapsed_s:.1f} s ({rate:.1f} recordings/s)"
 
 
 def content_hash(path: Path) -> tuple[str, int]:
@@ -70,12 +74,12 @@ def content_hash(path: Path) -> tuple[str, int]:
 
 
 def find_inbox_files(inbox: Path, *, settle_s: float = 0.0) -> list[Path]:
-    """Recordings in the inbox tree, oldest name first; hidden files (partial uploads) and files modified in the
-    last ``settle_s`` seconds are left for later."""
+    """Recordings in the inbox tree (analysis.io.is_recording), by name; files modified in the last ``settle_s``
+    seconds are left for later."""
     now = time.time()
     out = []
     for p in sorted(inbox.rglob("*")):
-        if p.suffix.lower() not in AUDIO_SUFFIXES or p.name.startswith(".") or not p.is_file():
+        if not is_recording(p):
             continue
         if settle_s > 0:
             try:
@@ -158,13 +162,13 @@ def process_files(
     """Register, analyse, archive (or quarantine) and store each (path, original name) of ``files``.
 
     ``pool``: a ProcessPoolExecutor to analyse in, made by the caller before it opened the store (see make_pool);
-    None analyses in this process. ``jobs`` sizes the window of analyses in flight. ``remove_source``: delete each delivered file (and its sidecar) once its outcome is committed.
+    None analyses in this process. ``jobs`` sizes the window of analyses in flight. ``remove_source``: delete each
+    delivered file (and its sidecar) once its outcome is committed.
     Analysed recordings are committed in batches of up to ``batch_size`` (each recording whole; a batch waits at
     most ``batch_wait_s`` for more), so the store sees few, larger transactions.
     """
-    from .store import Claim, StoreError
-    from .store.reference import score_result
-    from .store.writes import Analysed
+    from .references import score_result
+    from .store import Analysed, Claim, StoreError
 
     worker_id = worker_id or f"{socket.gethostname()}:{os.getpid()}"
     dirs = tuple(str(d) for d in profile_dirs)
@@ -194,7 +198,7 @@ def process_files(
                 bar.line(f"lost       {name}: another worker took over its claim")
                 continue
             summary.analysed += 1
-            flagged = any(rows[1] for _, rows in item.scored.values()) or not item.result.passed_qc
+            flagged = any(scored.flagged for _, scored in item.scored.values()) or not item.result.passed_qc
             bar.line(f"analysed   {name} -> actuation {actuation_id}"
                      + (" (flagged)" if flagged else "") + ("" if item.scored else " (no active model)"))
             if remove_source:
@@ -383,7 +387,7 @@ def ingest_paths(paths: Iterable[str | Path], store_url=None, jobs: int | None =
     from .store import Store
 
     files = list(_expand(paths))
-    jobs = _jobs(jobs)
+    jobs = jobs_or_cores(jobs)
     pool = make_pool(jobs) if jobs > 1 and len(files) > 1 else None
     try:
         with Store.open(store_url, files_dir=files_dir) as store:
@@ -395,7 +399,8 @@ def ingest_paths(paths: Iterable[str | Path], store_url=None, jobs: int | None =
             pool.shutdown(cancel_futures=True)
 
 
-def _jobs(jobs: int | None) -> int:
+def jobs_or_cores(jobs: int | None) -> int:
+    """The number of analysis processes: ``jobs``, or every core when None."""
     return max(1, int(jobs or os.cpu_count() or 1))
 
 
@@ -410,7 +415,7 @@ def run_worker(inbox: str | Path, store_url=None, *, once: bool = False, jobs: i
     inbox = Path(inbox)
     if not inbox.is_dir():
         raise AnalysisError(f"{inbox}: inbox folder does not exist")
-    jobs = _jobs(jobs)
+    jobs = jobs_or_cores(jobs)
     settle = (0.0 if once else DEFAULT_SETTLE_S) if settle_s is None else settle_s
     total = IngestSummary()
     worker_id = f"{socket.gethostname()}:{os.getpid()}"

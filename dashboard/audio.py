@@ -14,8 +14,8 @@ from pathlib import Path
 import flask
 
 from analysis.errors import AnalysisError
+from analysis.store import queries
 
-from . import queries
 from .drill import EVENT_PAD_S, wav_bytes
 
 __all__ = ["register", "audio_url", "wav_file"]

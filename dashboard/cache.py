@@ -8,23 +8,18 @@ from __future__ import annotations
 import hashlib
 import pickle
 
-from . import queries
+from analysis.store import queries
 
-__all__ = ["cached_query", "fingerprint"]
+__all__ = ["cached_query"]
 
 #: Cached aggregates expire after a day even if nobody asks for them again (the cache also has a size limit).
 EXPIRE_S = 24 * 3600
 
 
-def fingerprint(conn) -> tuple:
-    c = queries.store_counts_fast(conn)
-    return tuple(sorted(c.items()))
-
-
 def cached_query(store, cache, name: str, fn, *args, **kwargs):
     """fn(conn, *args, **kwargs) in one read transaction, or its cached result for the same store state."""
     with store.read() as conn:
-        fp = fingerprint(conn)
+        fp = queries.fingerprint(conn)
         key = "q:" + hashlib.sha256(pickle.dumps((store.url, name, args, sorted(kwargs.items()), fp))).hexdigest()
         if cache is not None:
             hit = cache.get(key, default=None)

@@ -1,8 +1,10 @@
-"""Shared fixtures: synthetic recordings written as real files through libsndfile, with their sidecars."""
+"""Shared fixtures: synthetic recordings written as real files through libsndfile, with their sidecars; the
+demo's small scenario; a store filled from it."""
 
 from __future__ import annotations
 
 import json
+import shutil
 from pathlib import Path
 
 import numpy as np
@@ -92,3 +94,26 @@ def small_scenario(tmp_path_factory) -> Path:
     out = tmp_path_factory.mktemp("small-scenario")
     generate(out, scenario="small")
     return out
+
+
+@pytest.fixture(scope="session")
+def filled_store(small_scenario, tmp_path_factory):
+    """(store URL, info) of a SQLite store holding the small scenario, analysed and scored, with its reference
+    models built (tests/fill.py). Tests must not write to it: a test that writes copies it with ``store_copy``."""
+    from tests.fill import fill_store
+
+    folder = tmp_path_factory.mktemp("dash-store")
+    url = f"sqlite:///{folder / 'harken.db'}"
+    info = fill_store(small_scenario, url, jobs=1)
+    info["folder"] = folder
+    return url, info
+
+
+@pytest.fixture
+def store_copy(filled_store, tmp_path):
+    """A private copy of the filled store (database and archive) that a test may write to."""
+    url, info = filled_store
+    src: Path = info["folder"]
+    dst = tmp_path / "copy"
+    shutil.copytree(src, dst, ignore=shutil.ignore_patterns("*-dashboard-cache"))
+    return f"sqlite:///{dst / 'harken.db'}"

@@ -8,7 +8,7 @@ start with BEGIN IMMEDIATE so two writers queue for the lock instead of failing 
 from __future__ import annotations
 
 import contextlib
-from dataclasses import dataclass
+import time
 from pathlib import Path
 
 from sqlalchemy import create_engine, event
@@ -18,7 +18,8 @@ from sqlalchemy.pool import StaticPool
 
 from . import queries, writes
 from .errors import StoreError
-from .schema import SCHEMA_VERSION, ensure_schema
+from .migrate import upgrade as upgrade_schema
+from .types import Claim
 
 __all__ = ["Store", "DEFAULT_STORE_FILE", "default_store_url", "safe_url"]
 
@@ -48,17 +49,6 @@ def safe_url(url) -> str:
         return "<unparsable store URL>"
 
 
-@dataclass(frozen=True)
-class Claim:
-    """What registering a recording found: kind is "new", "retry" (a stale claim taken over), "duplicate"
-    (already analysed or quarantined: nothing to do) or "busy" (another worker holds a fresh claim)."""
-
-    kind: str
-    recording_id: int | None
-    status: str | None = None
-    original_name: str | None = None
-
-
 class Store:
     """The results store. Open with ``Store.open(url)``; methods return DataFrames or dataclasses."""
 
@@ -71,12 +61,14 @@ class Store:
 
     # ------------------------------------------------------------------ opening
     @classmethod
-    def open(cls, url=None, *, files_dir: str | Path | None = None, create: bool = True) -> "Store":
-        """Open (and, if empty and ``create``, initialise) the store at ``url``.
+    def open(cls, url=None, *, files_dir: str | Path | None = None, create: bool = True,
+             migrations: str | Path | None = None) -> Store:
+        """Open (and, if empty and ``create``, initialise) the store at ``url``, upgrading an older schema.
 
         ``url``: a SQLAlchemy URL (``sqlite:///path.db``, ``postgresql+psycopg://user@host/db``) or a file path;
         None means ``harken.db`` in the working folder. ``files_dir``: where the archive and quarantine folders
-        live (default: beside a SQLite file, else the working folder). Raises StoreError naming the URL.
+        live (default: beside a SQLite file, else the working folder). ``migrations``: another folder of schema
+        revisions (tests and tools; default: this Harken's own). Raises StoreError naming the URL.
         """
         text = _normalise(url if url is not None else default_store_url())
         where = safe_url(text)
@@ -105,21 +97,17 @@ class Store:
             raise StoreError(f"{where}: database driver not installed ({exc})") from None
         except ModuleNotFoundError as exc:
             raise StoreError(f"{where}: database driver not installed ({exc.name}); for PostgreSQL install "
-                             "psycopg[binary]") from None
+                             "harken[postgresql] (pip install 'harken[postgresql]')") from None
         store = cls(engine, url=where, files_dir=Path(files_dir), stem=Path(db_file).stem if db_file else "harken")
         try:
-            with engine.connect().execution_options(harken_write=True) as conn, conn.begin():
-                if backend == "postgresql":
-                    # Two workers opening a new store at once: one creates the tables, the other waits here.
-                    conn.exec_driver_sql(f"SELECT pg_advisory_xact_lock({_SCHEMA_LOCK_KEY})")
-                if create:
-                    ensure_schema(conn, where=where, known_version=SCHEMA_VERSION, harken_version=_harken_version())
-                else:
-                    from sqlalchemy import inspect
-
-                    if not inspect(conn).get_table_names():
-                        raise StoreError(f"{where}: the database is empty (not a Harken store yet)")
-                    ensure_schema(conn, where=where)
+            with engine.connect().execution_options(harken_write=True) as conn:
+                with _foreign_keys_checked_at_the_end(conn, where=where):
+                    if backend == "postgresql":
+                        # Two workers opening a new store at once: one creates the tables, the other waits here.
+                        conn.exec_driver_sql(f"SELECT pg_advisory_xact_lock({_SCHEMA_LOCK_KEY})")
+                    # Creates, stamps or upgrades the schema in this transaction, or refuses the database.
+                    upgrade_schema(conn, where=where, create=create, harken_version=_harken_version(),
+                                   script_location=migrations)
         except StoreError:
             engine.dispose()
             raise
@@ -232,14 +220,32 @@ class Store:
         with self.write() as conn:
             writes.audit(conn, person=person, action=action, target=target, detail=detail)
 
+    def insert_model(self, *, profile: str, event: str, model, meta: dict, created_by: str,
+                     activate: bool = True) -> tuple[int, int]:
+        """Store a fitted ReferenceModel as the next version of (profile, event), active unless told otherwise
+        (audited); returns (model_id, version)."""
+        from .codec import model_to_blobs
+
+        text, blob = model_to_blobs(model, meta)
+        with self.write() as conn:
+            return writes.insert_model(conn, profile=profile, event=event, model_json=text, model_npz=blob,
+                                       meta=meta, model=model, created_by=created_by, activate=activate)
+
+    def insert_scores(self, model_id: int, event: str, items) -> None:
+        """Write scores of one event under one model: items [(actuation_id, ScoredEvent)], in one transaction."""
+        with self.write() as conn:
+            writes.insert_scores(conn, model_id, event, list(items))
+
     # ------------------------------------------------------------------ reads (analysis.store.queries)
+    # The common reads, each in its own read transaction; ``with store.read() as conn`` and the functions of
+    # analysis.store.queries give every other one, and several in one consistent snapshot.
     def schema_version(self) -> int:
         with self.read() as conn:
             return queries.schema_version(conn)
 
     def recordings(self, *, status: str | None = None):
         with self.read() as conn:
-            return queries.recordings_df(conn, status=status)
+            return queries.recordings(conn, status=status)
 
     def quarantine(self):
         with self.read() as conn:
@@ -247,7 +253,7 @@ class Store:
 
     def actuations(self, *, profile: str | None = None):
         with self.read() as conn:
-            return queries.actuations_df(conn, profile=profile)
+            return queries.actuations(conn, profile=profile)
 
     def export_actuations(self):
         with self.read() as conn:
@@ -255,15 +261,15 @@ class Store:
 
     def flag_summary(self, *, by: tuple[str, ...] = ("rig", "lot")):
         with self.read() as conn:
-            return queries.flag_summary(conn, by=by)
+            return queries.flag_summary(conn, by=tuple(by))
 
-    def flags(self, *, actuation_id: int | None = None, active_only: bool = True):
+    def flags(self, *, actuation_ids=None, active_only: bool = True):
         with self.read() as conn:
-            return queries.flags_df(conn, actuation_id=actuation_id, active_only=active_only)
+            return queries.flags(conn, actuation_ids=actuation_ids, active_only=active_only)
 
-    def models(self, *, profile: str | None = None, event: str | None = None):
+    def models(self, *, profile: str | None = None, event: str | None = None, counts: bool = False):
         with self.read() as conn:
-            return queries.models(conn, profile=profile, event=event)
+            return queries.models(conn, profile=profile, event=event, counts=counts)
 
     def load_model(self, model_id: int):
         with self.read() as conn:
@@ -276,7 +282,15 @@ class Store:
 
     def band_levels(self, profile: str, event: str, *, lots=None, passed_qc_only: bool = True):
         with self.read() as conn:
-            return queries.band_levels(conn, profile, event, lots=lots, passed_qc_only=passed_qc_only)
+            return queries.band_levels(conn, event, profile=profile, lots=lots, passed_qc_only=passed_qc_only)
+
+    def lot_names(self, profile: str | None = None) -> list[str]:
+        with self.read() as conn:
+            return queries.lot_names(conn, profile)
+
+    def unscored(self, profile: str, event: str, model_id: int, *, limit: int) -> list:
+        with self.read() as conn:
+            return queries.unscored(conn, profile, event, model_id, limit=limit)
 
     def trajectory(self, actuation_id: int, event: str, *, model_id: int | None = None):
         with self.read() as conn:
@@ -284,12 +298,36 @@ class Store:
 
     def audit_log(self):
         with self.read() as conn:
-            return queries.audit_log_df(conn)
+            return queries.audit_log(conn)
 
     def check_integrity(self) -> list[str]:
         """Problems found (empty when every analysed recording is whole and every quarantined one has a reason)."""
         with self.read() as conn:
             return queries.check_integrity(conn)
+
+
+@contextlib.contextmanager
+def _foreign_keys_checked_at_the_end(conn, *, where: str):
+    """The schema transaction on ``conn``. On SQLite foreign keys are off during it and checked once at its end
+    (PRAGMA foreign_key_check): a revision in batch mode rebuilds a table by copy, drop and rename, which an
+    immediate foreign-key check refuses for any table others point at. The PRAGMA takes effect only outside a
+    transaction, so it is set on the driver's connection before BEGIN, and set back before the connection returns
+    to the pool."""
+    raw = conn.connection.driver_connection if conn.dialect.name == "sqlite" else None
+    if raw is not None:
+        raw.execute("PRAGMA foreign_keys=OFF")
+    try:
+        with conn.begin():
+            yield
+            if raw is not None:
+                broken = conn.exec_driver_sql("PRAGMA foreign_key_check").fetchall()
+                if broken:
+                    table, rowid, parent, _ = broken[0]
+                    raise StoreError(f"{where}: the schema upgrade left {len(broken)} row(s) pointing nowhere (e.g. "
+                                     f"{table} row {rowid} -> {parent}); nothing was changed")
+    finally:
+        if raw is not None:
+            raw.execute("PRAGMA foreign_keys=ON")
 
 
 def _harken_version() -> str:
@@ -306,6 +344,23 @@ def _reason(exc) -> str:
     return str(orig if orig is not None else exc).strip().splitlines()[0]
 
 
+def _set_wal(cur) -> None:
+    """PRAGMA journal_mode=WAL, retried while another connection holds the lock: switching a new file to WAL
+    needs it exclusively, and SQLite answers "database is locked" at once there instead of waiting out the busy
+    timeout (seen with several workers opening a new store at the same instant)."""
+    import sqlite3
+
+    deadline = time.monotonic() + SQLITE_BUSY_TIMEOUT_S
+    while True:
+        try:
+            cur.execute("PRAGMA journal_mode=WAL")
+            return
+        except sqlite3.OperationalError as exc:
+            if "locked" not in str(exc) or time.monotonic() > deadline:
+                raise
+            time.sleep(0.02)
+
+
 def _make_engine(u, *, memory: bool):
     if u.get_backend_name() == "sqlite":
         kwargs = {"connect_args": {"timeout": SQLITE_BUSY_TIMEOUT_S, "check_same_thread": False}}
@@ -320,7 +375,7 @@ def _make_engine(u, *, memory: bool):
             dbapi_conn.isolation_level = None
             cur = dbapi_conn.cursor()
             if not memory:
-                cur.execute("PRAGMA journal_mode=WAL")
+                _set_wal(cur)
                 cur.execute("PRAGMA synchronous=NORMAL")  # in WAL mode: durable at checkpoints, never corrupt
             cur.execute(f"PRAGMA busy_timeout={int(SQLITE_BUSY_TIMEOUT_S * 1000)}")
             cur.execute("PRAGMA foreign_keys=ON")

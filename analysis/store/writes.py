@@ -9,14 +9,12 @@ worker takes over once it is older than the claim timeout.
 from __future__ import annotations
 
 import json
-import math
-from dataclasses import dataclass
-from datetime import timedelta, timezone
+from datetime import UTC, timedelta
 
-import numpy as np
 from sqlalchemy import and_, bindparam, func, select
 from sqlalchemy.dialects import postgresql, sqlite
 
+from .codec import f32, f64, num
 from .errors import StoreError
 from .schema import (
     actuations,
@@ -34,30 +32,12 @@ from .schema import (
     utc_now,
     verdicts,
 )
+from .types import VERDICTS, Analysed, Claim
 
 __all__ = [
-    "Analysed", "claim", "reopen_quarantined", "commit_analyses", "commit_quarantine", "release_claim", "insert_scores", "insert_model",
-    "activate_model", "add_verdict", "audit", "f32", "f64", "num",
+    "claim", "reopen_quarantined", "commit_analyses", "commit_quarantine", "release_claim", "insert_scores",
+    "insert_model", "activate_model", "add_verdict", "audit",
 ]
-
-VERDICTS = ("confirmed", "false alarm", "recording", "rig", "lot", "unit", "other")
-
-
-def f32(a) -> bytes:
-    """Array as little-endian float32 bytes (the store's compact form)."""
-    return np.ascontiguousarray(a, dtype="<f4").tobytes()
-
-
-def f64(a) -> bytes:
-    return np.ascontiguousarray(a, dtype="<f8").tobytes()
-
-
-def num(x):
-    """A finite float or None (NaN and infinity are stored as NULL on every backend)."""
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 def _insert_ignore(conn, table, values: dict) -> int | None:
@@ -68,9 +48,8 @@ def _insert_ignore(conn, table, values: dict) -> int | None:
 
 
 # ------------------------------------------------------------------------------------------------------ claims
-def claim(conn, content_hash, original_name, size_bytes, *, worker, claim_timeout_s):
-    from .core import Claim
-
+def claim(conn, content_hash, original_name, size_bytes, *, worker, claim_timeout_s) -> Claim:
+    """Register a recording by its content hash and claim it for ``worker`` (see Claim)."""
     now = utc_now()
     new_id = _insert_ignore(conn, recordings, dict(
         content_hash=content_hash, original_name=original_name, size_bytes=int(size_bytes), received_at=now,
@@ -154,21 +133,10 @@ def _get_id(conn, cache, table, **key) -> int:
 def _utc_naive(dt):
     if dt.tzinfo is None:
         return dt
-    return dt.astimezone(timezone.utc).replace(tzinfo=None)
+    return dt.astimezone(UTC).replace(tzinfo=None)
 
 
-@dataclass(frozen=True)
-class Analysed:
-    """One analysed recording ready to be written: its claim, result, archived original and scores
-    ({event: (model_id, (trajectory row, flag rows))}, see analysis.store.reference.score_result)."""
-
-    recording_id: int
-    result: object
-    archive_path: str
-    scored: dict
-
-
-def commit_analyses(conn, cache, items, *, worker) -> list[int | None]:
+def commit_analyses(conn, cache, items: list[Analysed], *, worker) -> list[int | None]:
     """Write analysed recordings (QC, actuation, events with band levels, scores, flags), each whole.
 
     Rows of all items go in with one executemany per table. Returns the actuation id per item, or None for an
@@ -224,8 +192,8 @@ def commit_analyses(conn, cache, items, *, worker) -> list[int | None]:
                     reason=f"recording failed its {q.check} check: {q.detail}", created_at=now))
         for ev in res.events:
             ev_rows.append(_event_row(actuation_id, ev, res.features.get(ev.name)))
-        for event, (model_id, rows) in it.scored.items():
-            by_model.setdefault((model_id, event), []).append((actuation_id, rows))
+        for event, (model_id, scored) in it.scored.items():
+            by_model.setdefault((model_id, event), []).append((actuation_id, scored))
     conn.execute(qc_results.insert(), qc_rows)
     if ev_rows:
         conn.execute(events.insert(), ev_rows)
@@ -256,12 +224,13 @@ def _event_row(actuation_id, ev, f) -> dict:
 
 
 def insert_scores(conn, model_id, event, items) -> None:
-    """items: [(actuation_id, (trajectory row, [flag rows]))] as made by analysis.store.reference.score_rows."""
+    """Write scores of one event under one model: items [(actuation_id, ScoredEvent)] (analysis.store.codec)."""
     now = utc_now()
     traj, fl = [], []
-    for actuation_id, (t_row, f_rows) in items:
-        traj.append(dict(t_row, actuation_id=actuation_id, event=event, model_id=model_id))
-        fl.extend(dict(f, actuation_id=actuation_id, event=event, model_id=model_id, created_at=now) for f in f_rows)
+    for actuation_id, scored in items:
+        traj.append(dict(scored.trajectory, actuation_id=actuation_id, event=event, model_id=model_id))
+        fl.extend(dict(f, actuation_id=actuation_id, event=event, model_id=model_id, created_at=now)
+                  for f in scored.flags)
     if traj:
         conn.execute(trajectories.insert(), traj)
     if fl:

@@ -99,3 +99,18 @@ def test_missing_model_folder_and_recordings_are_named(tmp_path):
         load_models([tmp_path])
     with pytest.raises(Exception, match=r"nowhere: no such file or folder"):
         find_recordings([tmp_path / "nowhere"])
+
+
+def test_model_fit_and_the_worker_take_the_same_files_from_a_folder(tmp_path):
+    from analysis.worker import find_inbox_files
+    from tests.conftest import write_recording
+
+    folder = tmp_path / "in"
+    write_recording(folder, "a")
+    write_recording(folder / "sub", "b", fmt="WAV", subtype="PCM_16")
+    write_recording(folder, ".partial")  # a hidden file: an upload in progress
+    (folder / "notes.txt").write_text("not audio")
+    (folder / "c.flac").mkdir()  # a folder that only looks like a recording
+    names = sorted(p.relative_to(folder).as_posix() for p in find_recordings([folder]))
+    assert names == ["a.flac", "sub/b.wav"]
+    assert sorted(p.relative_to(folder).as_posix() for p in find_inbox_files(folder)) == names

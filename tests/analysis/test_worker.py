@@ -10,7 +10,7 @@ import numpy as np
 
 from analysis.store import Store
 from analysis.worker import find_inbox_files, ingest_paths, run_worker
-from tests.analysis.store.conftest import run_cli, sqlite_url, store_url  # noqa: F401  (fixtures)
+from tests.analysis.conftest import run_cli
 from tests.conftest import sidecar_dict, synth_actuation, write_recording
 
 
@@ -105,7 +105,7 @@ def test_every_bad_file_ends_in_quarantine_with_its_reason_and_the_worker_goes_o
     with Store.open(store_url, files_dir=tmp_path) as store:
         q = store.quarantine().set_index("file")
         acts = store.actuations().set_index("file")
-        one_flags = store.flags(actuation_id=int(acts.loc["one.flac", "actuation_id"]))
+        one_flags = store.flags(actuation_ids=[int(acts.loc["one.flac", "actuation_id"])])
         assert store.check_integrity() == []
     assert sorted(q.index) == sorted(cases)
     for name, words in cases.items():
@@ -165,7 +165,7 @@ def test_without_once_the_worker_polls_until_interrupted(sqlite_url, tmp_path):
     inbox = tmp_path / "inbox"
     inbox.mkdir()
     proc = subprocess.Popen(
-        [sys.executable, "-m", "analysis.store_cli", "worker", "--inbox", str(inbox), "--store", sqlite_url,
+        [sys.executable, "-m", "analysis.cli", "worker", "--inbox", str(inbox), "--store", sqlite_url,
          "--jobs", "1", "--interval-s", "0.2", "--settle-s", "0"],
         cwd=Path(__file__).resolve().parents[2], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
     )
@@ -207,3 +207,14 @@ def test_a_quarantined_file_delivered_again_with_a_fixed_sidecar_is_analysed(sto
         assert len(store.quarantine()) == 0 and len(store.actuations()) == 1 and len(store.recordings()) == 1
         assert list(store.audit_log()["action"]) == ["quarantine.retry"]
         assert store.check_integrity() == []
+
+
+def test_the_pass_summary_names_every_count_that_is_not_zero():
+    from analysis.worker import IngestSummary
+
+    quiet = str(IngestSummary(analysed=3, elapsed_s=1.5))
+    assert quiet.startswith("3 analysed, 0 quarantined, 0 already stored, 0 claimed by another worker in 1.5 s")
+    assert "taken over" not in quiet and "gone" not in quiet
+    loud = str(IngestSummary(analysed=1, lost=2, vanished=4, elapsed_s=1.0))
+    assert "2 taken over by another worker while analysed" in loud
+    assert "4 gone from the inbox before they were read" in loud

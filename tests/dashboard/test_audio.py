@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from dashboard import queries
+from analysis.store import queries
 
 
 @pytest.fixture

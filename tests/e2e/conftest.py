@@ -12,8 +12,7 @@ from pathlib import Path
 
 import pytest
 
-# the same fixtures as the dashboard's unit tests: a session store from the small scenario, and a private copy
-from tests.dashboard.conftest import filled_store, store_copy  # noqa: F401
+# filled_store and store_copy (tests/conftest.py): a session store from the small scenario, and a private copy
 
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts" / "dashboard"
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",

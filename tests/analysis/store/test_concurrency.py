@@ -46,7 +46,7 @@ def _fill_inbox(inbox: Path, scenario: Path, n_good: int) -> dict[str, str]:
 
 def _worker(inbox, url, files, *extra) -> subprocess.Popen:
     return subprocess.Popen(
-        [sys.executable, "-m", "analysis.store_cli", "worker", "--inbox", str(inbox), "--store", url, "--once",
+        [sys.executable, "-m", "analysis.cli", "worker", "--inbox", str(inbox), "--store", url, "--once",
          "--files", str(files), *map(str, extra)],
         cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
     )
@@ -81,7 +81,7 @@ def _check_outcome(store, inputs: dict[str, str], inbox: Path) -> None:
         assert hashlib.sha256(kept.read_bytes()).hexdigest() == h
     quarantined = recs[recs["status"] == "quarantined"]
     assert sorted(inputs[h] for h in quarantined.index) == ["bad/empty.flac", "bad/junk.wav", "bad/nosidecar.flac"]
-    for h, row in quarantined.iterrows():
+    for _h, row in quarantined.iterrows():
         assert row["error"] and Path(row["archive_path"]).is_file()
     assert store.check_integrity() == []
     assert not [p for p in inbox.rglob("*") if p.suffix in (".flac", ".wav")]
@@ -119,8 +119,8 @@ def test_a_reader_polling_during_ingest_sees_only_whole_recordings(store_url, sm
                 from analysis.store import queries
 
                 assert queries.check_integrity(conn) == []
-                n = len(queries.actuations_df(conn))
-                recs = queries.recordings_df(conn)
+                n = len(queries.actuations(conn))
+                recs = queries.recordings(conn)
             done = int(recs["status"].eq("analysed").sum()) if len(recs) else 0
             assert n == done
             polls += 1

@@ -8,9 +8,9 @@ import json
 import pandas as pd
 import pytest
 
-from analysis.store import Store, flag_summary
+from analysis.store import Store
 from analysis.worker import run_worker
-from tests.analysis.store.conftest import run_cli
+from tests.analysis.conftest import run_cli
 from tests.conftest import sidecar_dict
 
 IDENTIFIERS = ["actuation_id", "file", "site", "rig", "lot", "unit", "actuation", "recorded_at"]
@@ -54,7 +54,7 @@ def test_export_actuations_has_one_row_per_actuation_with_the_generators_identif
 def test_the_flag_summary_counts_what_the_export_flags(small_store):
     url, files = small_store
     with Store.open(url, files_dir=files) as store:
-        summary = flag_summary(store)
+        summary = store.flag_summary()
         by_site = store.flag_summary(by=("site",))
         df = store.export_actuations()
     expect = df.groupby(["rig", "lot"]).agg(actuations=("flagged", "size"), flagged=("flagged", "sum")).reset_index()

@@ -1,4 +1,5 @@
-"""Reference models in the store: build from stored band levels, score on ingest and on re-scoring, versions."""
+"""Reference models on a store (analysis.references): build from stored band levels, score on ingest and on
+re-scoring, versions."""
 
 from __future__ import annotations
 
@@ -8,10 +9,11 @@ import pytest
 
 from analysis.errors import ProfileError
 from analysis.pipeline import analyse_file
+from analysis.references import build_reference, rescore
 from analysis.scoring import monitor_result
-from analysis.store import Store, StoreError, build_reference, rescore
+from analysis.store import Store, StoreError
 from analysis.worker import ingest_paths
-from tests.analysis.store.conftest import run_cli
+from tests.analysis.conftest import run_cli
 
 REF_LOTS = ["L2601", "L2602", "L2603"]
 

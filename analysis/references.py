@@ -1,83 +1,46 @@
-"""Reference models in the store: build from stored band levels, score actuations, re-score history.
+"""Reference models on a results store: build them from stored lots, score actuations, re-score history.
 
-Scores and flags are kept per model version, so an older version's results stay readable after a new one
-is made active. Band levels are scored as stored (float32), at ingest and on re-scoring alike, so both give the
-same statistics for the same recording.
+A service beside the worker: it uses the store (which only stores and reads) and the pure core (which fits and
+scores). Scores and flags are kept per model version, so an older version's results stay readable after a new
+one is made active. Band levels are scored as stored (float32), at ingest and on re-scoring alike, so both give
+the same statistics for the same recording.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, Iterable, Sequence
 
 import numpy as np
-from sqlalchemy import and_, exists, select
 
-from analysis.monitor import ReferenceModel
-from analysis.profiles import load_profile
-from analysis.scoring import FeatureSet, current_user, fit_event_model
+from .monitor import ReferenceModel
+from .profiles import load_profile
+from .scoring import FeatureSet, current_user, fit_event_model
+from .store import Store, StoreError
+from .store.codec import missing_event, scored_events
+from .store.types import ScoredEvent
 
-from . import writes
-from .errors import StoreError
-from .schema import actuations, trajectories
-from .schema import events as events_t
-
-__all__ = ["build_reference", "rescore", "score_rows", "score_result", "missing_event_rows", "model_to_blobs",
-           "model_from_blobs", "ModelInfo", "RESCORE_CHUNK"]
+__all__ = ["build_reference", "rescore", "score_levels", "score_result", "ModelInfo", "RESCORE_CHUNK"]
 
 #: Actuations scored and written per transaction when re-scoring history (keeps memory flat).
 RESCORE_CHUNK = 500
 
 
-def model_to_blobs(model: ReferenceModel, meta: dict) -> tuple[str, bytes]:
-    """The model as (JSON text, npz bytes), the same documents its files hold (analysis.modelfile)."""
-    return model.to_documents(metadata=meta)
-
-
-def model_from_blobs(model_json: str, model_npz: bytes, *, where: str) -> ReferenceModel:
-    """A ReferenceModel from its stored JSON text and npz bytes (format and checksum checked)."""
-    return ReferenceModel.from_documents(model_json, model_npz, source=where)
-
-
-def missing_event_rows(reason: str):
-    """(trajectory row, flag rows) of an event that has no band levels to score."""
-    traj = dict(n_slices=None, n_components=None, scores_f32=None, t2_f32=None, spe_f32=None, t2_max=None,
-                spe_max=None, t2_ratio=None, spe_ratio=None, trajectory_distance=None, event_spe_ratio=None,
-                slices_outside=None, flagged=True)
-    return traj, [dict(statistic="event_missing", value=None, limit_value=None, reason=reason)]
-
-
-def score_rows(model: ReferenceModel, X: np.ndarray) -> list:
-    """Score actuations X (n, n_slices, n_bands) with ``model``; one (trajectory row, flag rows) per actuation."""
-    x = np.asarray(X, dtype=np.float32).astype(float)  # as stored
-    m = model.score(x)
-    num = writes.num
-    out = []
-    for i in range(x.shape[0]):
-        traj = dict(
-            n_slices=int(m.t2.shape[1]), n_components=int(m.scores.shape[2]),
-            scores_f32=writes.f32(m.scores[i]), t2_f32=writes.f32(m.t2[i]), spe_f32=writes.f32(m.spe[i]),
-            t2_max=num(m.t2_max[i]), spe_max=num(m.spe_max[i]), t2_ratio=num(m.t2_ratio[i]),
-            spe_ratio=num(m.spe_ratio[i]), trajectory_distance=num(m.trajectory_distance[i]),
-            event_spe_ratio=num(m.event_spe_ratio[i]) if m.event_spe_ratio is not None else None,
-            slices_outside=int(m.slices_outside[i]), flagged=bool(m.flagged[i]),
-        )
-        fl = [dict(statistic=stat, value=num(v), limit_value=num(lim), reason=why)
-              for stat, v, lim, why in m.raised(i)]
-        out.append((traj, fl))
-    return out
+def score_levels(model: ReferenceModel, X: np.ndarray) -> list[ScoredEvent]:
+    """Score actuations X (n, n_slices, n_bands) with ``model``, as stored (float32): one ScoredEvent each."""
+    return scored_events(model.score(np.asarray(X, dtype=np.float32).astype(float)))
 
 
 def score_result(result, models: dict) -> dict:
-    """{event: (model_id, (trajectory row, flag rows))} for one RecordingResult under the active models."""
+    """{event: (model_id, ScoredEvent)} for one RecordingResult under the active models {event: (id, model)}."""
     scored = {}
     for event, (model_id, model) in models.items():
         feats = result.features.get(event)
         if feats is None or feats.levels_db.shape != (model.n_slices_, model.n_bands_):
-            scored[event] = (model_id, missing_event_rows(_missing_reason(result, event, feats, model)))
+            scored[event] = (model_id, missing_event(_missing_reason(result, event, feats, model)))
             continue
-        scored[event] = (model_id, score_rows(model, feats.levels_db[None])[0])
+        scored[event] = (model_id, score_levels(model, feats.levels_db[None])[0])
     return scored
 
 
@@ -108,7 +71,7 @@ class ModelInfo:
 
 
 def build_reference(
-    store, profile: str, events: Sequence[str] | None, lots: Iterable[str], *, created_by: str | None = None,
+    store: Store, profile: str, events: Sequence[str] | None, lots: Iterable[str], *, created_by: str | None = None,
     profile_dirs: Iterable[str | Path] = (), n_components: int | None = None, scaling: str = "unit",
     alpha: float = 0.01, log: Callable[[str], None] = lambda msg: None,
 ) -> list[ModelInfo]:
@@ -131,10 +94,8 @@ def build_reference(
                                       alpha=alpha / len(names))
         meta["created_by"] = who
         model.metadata_ = meta
-        text, blob = model_to_blobs(model, meta)
-        with store.write() as conn:
-            model_id, version = writes.insert_model(conn, profile=prof.name, event=event, model_json=text,
-                                                    model_npz=blob, meta=meta, model=model, created_by=who)
+        model_id, version = store.insert_model(profile=prof.name, event=event, model=model, meta=meta,
+                                               created_by=who)
         log(f"{prof.name}/{event}: version {version} (model {model_id}) from {len(fs.paths)} actuations of lots "
             f"{', '.join(sorted(set(fs.lots)))}, {model.n_components_} components, {len(fs.excluded)} left out")
         n = rescore(store, prof.name, events=[event], model_id=model_id)
@@ -150,10 +111,7 @@ def _feature_set(store, profile, event, lots) -> FeatureSet:
     known = set(df["lot"])
     absent = [lot for lot in lots if lot not in known]
     if absent:
-        with store.read() as conn:
-            from . import queries
-
-            have = queries.lot_names(conn, profile)
+        have = store.lot_names(profile)
         raise StoreError(f"{store.url}: no stored actuations of profile {profile!r} in lot(s) {', '.join(absent)} "
                          f"(lots in the store: {', '.join(have) or 'none'})")
     rows, paths, lot_of, excluded = [], [], [], []
@@ -198,37 +156,27 @@ def rescore(store, profile: str, *, events: Sequence[str] | None = None, model_i
             raise StoreError(f"{store.url}: no active reference model for profile {profile!r}; "
                              "build one with `harken reference build`")
     total = 0
+    shape_of = {event: (model.n_slices_, model.n_bands_) for event, (_, model) in targets.items()}
     for event, (mid, model) in targets.items():
+        shape = shape_of[event]
         while True:
-            with store.read() as conn:
-                todo = conn.execute(
-                    select(actuations.c.id, events_t.c.levels_f32, events_t.c.n_slices, events_t.c.n_bands,
-                           events_t.c.found, events_t.c.reason)
-                    .select_from(actuations.outerjoin(events_t, and_(events_t.c.actuation_id == actuations.c.id,
-                                                                   events_t.c.name == event)))
-                    .where(actuations.c.profile == profile)
-                    .where(~exists().where(and_(trajectories.c.actuation_id == actuations.c.id,
-                                                trajectories.c.event == event, trajectories.c.model_id == mid)))
-                    .order_by(actuations.c.id).limit(chunk)
-                ).all()
+            todo = store.unscored(profile, event, mid, limit=chunk)
             if not todo:
                 break
             items, ok_ids, ok_x = [], [], []
-            shape = (model.n_slices_, model.n_bands_)
             for r in todo:
-                if r.levels_f32 is None:
-                    why = r.reason or ("no band features" if r.found else "not found")
-                    items.append((r.id, missing_event_rows(f"event {event!r} not analysed: {why}")))
-                elif (r.n_slices, r.n_bands) != shape:
-                    items.append((r.id, missing_event_rows(
+                if r["levels"] is None:
+                    why = r["reason"] or ("no band features" if r["found"] else "not found")
+                    items.append((r["actuation_id"], missing_event(f"event {event!r} not analysed: {why}")))
+                elif r["levels"].shape != shape:
+                    items.append((r["actuation_id"], missing_event(
                         f"event {event!r} not scored: the model expects {shape[0]} slices x {shape[1]} bands, "
-                        f"the recording has {r.n_slices} x {r.n_bands}")))
+                        f"the recording has {r['n_slices']} x {r['n_bands']}")))
                 else:
-                    ok_ids.append(r.id)
-                    ok_x.append(np.frombuffer(r.levels_f32, dtype="<f4").reshape(shape))
+                    ok_ids.append(r["actuation_id"])
+                    ok_x.append(r["levels"])
             if ok_x:
-                items += list(zip(ok_ids, score_rows(model, np.stack(ok_x))))
-            with store.write() as conn:
-                writes.insert_scores(conn, mid, event, items)
+                items += list(zip(ok_ids, score_levels(model, np.stack(ok_x))))
+            store.insert_scores(mid, event, items)
             total += len(items)
     return total

@@ -1,4 +1,5 @@
-"""Store fixtures: a fresh store per test on SQLite and, when a server is reachable, on PostgreSQL.
+"""Fixtures for the tests of analysis: a fresh store per test on SQLite and, when a server is reachable, on
+PostgreSQL; the small scenario ingested into a shared store per backend; running `harken` in this process.
 
 PostgreSQL: the URL of a server where we may create databases comes from HARKEN_TEST_PG_URL (read at test time;
 ``.ci/postgres.sh`` starts one and sets it). Each test gets its own new database, dropped afterwards.
@@ -89,7 +90,8 @@ def sqlite_url(tmp_path):
 def small_stores(small_scenario, tmp_path_factory):
     """get(backend) -> (url, files_dir): the small scenario ingested into a store of that backend, with reference
     models built from its reference lots; made on first use, shared by the session's tests (they only read it)."""
-    from analysis.store import Store, build_reference
+    from analysis.references import build_reference
+    from analysis.store import Store
     from analysis.worker import ingest_paths
 
     made: dict = {}
@@ -118,11 +120,11 @@ def small_store(request, small_stores):
 
 
 def run_cli(*argv) -> tuple[int, str, str]:
-    """Run a store subcommand as `harken` would (argparse harness around analysis.store_cli)."""
+    """Run a `harken` command in this process: (exit code, stdout, stderr)."""
     import contextlib
     import io
 
-    from analysis.store_cli import main
+    from analysis.cli import main
 
     out, err = io.StringIO(), io.StringIO()
     with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):

@@ -1,4 +1,4 @@
-"""The dashboard's queries give the same answers on a PostgreSQL store as on the SQLite one (same scenario).
+"""The read API gives the same answers on a PostgreSQL store as on the SQLite one (same scenario).
 
 Runs when a test server is reachable (HARKEN_TEST_PG_URL; `. .ci/postgres.sh` starts one); CI requires it.
 """
@@ -9,9 +9,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.store import Store
-from dashboard import queries
-from tests.analysis.store.conftest import drop_pg_database, make_pg_database
+from analysis.store import Store, queries
+from tests.analysis.conftest import drop_pg_database, make_pg_database
 
 CALLS = [
     ("lot_points t2", lambda c: queries.lot_points(c, "t2_ratio", "metering_click")),
@@ -20,7 +19,7 @@ CALLS = [
     ("rig_histogram", lambda c: queries.rig_histogram(c, "onset_s", "dose_release", n_bins=12)[1]),
     ("lot_actuations", lambda c: queries.lot_actuations(c, "L2604")),
     ("latest_per_rig", lambda c: queries.latest_per_rig(c, per_rig=5)),
-    ("models_table", lambda c: queries.models_table(c)),
+    ("models", lambda c: queries.models(c, counts=True)),
 ]
 
 
@@ -30,7 +29,7 @@ def pg_store(small_scenario, tmp_path_factory):
     folder = tmp_path_factory.mktemp("dash-pg-files")
     with Store.open(url, files_dir=folder):
         pass
-    from analysis.store import build_reference
+    from analysis.references import build_reference
     from analysis.worker import ingest_paths
 
     truth = pd.read_csv(small_scenario / "ground_truth.csv")
@@ -52,7 +51,7 @@ def _comparable(df: pd.DataFrame) -> pd.DataFrame:
 
 
 @pytest.mark.parametrize("name,call", CALLS, ids=[c[0] for c in CALLS])
-def test_dashboard_queries_agree_between_sqlite_and_postgresql(filled_store, pg_store, name, call):
+def test_queries_agree_between_sqlite_and_postgresql(filled_store, pg_store, name, call):
     lite_url, _ = filled_store
     pg_url, folder = pg_store
     with Store.open(lite_url, create=False) as lite, lite.read() as c1:

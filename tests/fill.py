@@ -1,5 +1,5 @@
-"""Fill a results store from a folder of recordings for the dashboard's tests: the worker's ``ingest_paths``,
-then the reference models from the scenario's reference lots (analysis.store.build_reference)."""
+"""Fill a results store from a folder of recordings for the tests: the worker's ``ingest_paths``, then the
+reference models from the scenario's reference lots (analysis.references.build_reference)."""
 
 from __future__ import annotations
 
@@ -10,7 +10,8 @@ import pandas as pd
 
 
 def fill_store(inbox: Path, store_url: str, *, jobs: int = 1) -> dict:
-    from analysis.store import Store, build_reference
+    from analysis.references import build_reference
+    from analysis.store import Store
     from analysis.worker import ingest_paths
 
     inbox = Path(inbox)
