@@ -9,36 +9,24 @@ opens the same view with the same selections.
 
 from __future__ import annotations
 
-import json
 import os
 import secrets
 from dataclasses import dataclass, field
 from pathlib import Path
-from urllib.parse import parse_qs
 
 import diskcache
-import flask
-from dash import Dash, DiskcacheManager, Input, Output, State, dcc, html, no_update
+from dash import Dash, DiskcacheManager, Input, Output, dcc, html, no_update
 
+from analysis.cautions import CAUTIONS
 from analysis.store import Store
 
 from . import audio as audio_route
+from .urlstate import parse_query
 from .views import VIEWS, view_for_path
 
-__all__ = ["create_app", "AppContext", "CAUTIONS", "parse_query"]
+__all__ = ["create_app", "AppContext"]
 
 ASSETS = Path(__file__).resolve().parent.parent / "assets"
-
-CAUTIONS = (
-    "Acoustic monitoring supports investigation and trending; it does not replace compendial release tests or "
-    "the site's quality system.",
-    "A verdict recorded in Harken is not a batch disposition.",
-    "Use in a regulated (GMP) setting needs the site's own computerised-system validation.",
-    "Recordings of impacts can be loud: playback starts at a low volume.",
-)
-
-#: Players start at this fraction of full volume (assets/harken.js applies it to every audio element).
-
 
 @dataclass
 class AppContext:
@@ -50,12 +38,6 @@ class AppContext:
     refresh_s: float = 30.0
     meeting: bool = False
     extra: dict = field(default_factory=dict)
-
-
-def parse_query(search: str | None) -> dict:
-    """A URL query string as {key: value} (the last value of a repeated key; comma lists stay text)."""
-    q = parse_qs((search or "").lstrip("?"), keep_blank_values=False)
-    return {k: v[-1] for k, v in q.items()}
 
 
 def _secret_key(cache_dir: Path, given: str | None) -> str:
@@ -162,35 +144,3 @@ def _register_shell(app: Dash, ctx: AppContext) -> None:
         """,
         Output("app-meeting", "data"), Input("app-meeting-switch", "value"),
     )
-
-
-def url_sync_script(names) -> str:
-    """The clientside function that writes a view's selections into the address bar (no re-render)."""
-    return """
-    function() {
-        const names = %s;
-        const p = new URLSearchParams();
-        for (let i = 0; i < names.length; i++) {
-            let v = arguments[i];
-            if (v === null || v === undefined || v === '' || (Array.isArray(v) && v.length === 0)) { continue; }
-            if (Array.isArray(v)) { v = v.join(','); }
-            p.set(names[i], String(v));
-        }
-        if (document.body.classList.contains('meeting')) { p.set('meeting', '1'); }
-        const q = p.toString();
-        const url = window.location.pathname + (q ? '?' + q : '');
-        if (url !== window.location.pathname + window.location.search) {
-            window.history.replaceState(window.history.state, '', url);
-        }
-        return q;
-    }
-    """ % json.dumps(list(names))
-
-
-def register_url_state(app: Dash, view_name: str, state) -> None:
-    """Keep a view's selections in the URL: state is [(query key, component id, prop), ...]; the view's layout
-    must hold a ``dcc.Store(id=f"{view_name}-url")``."""
-    app.clientside_callback(url_sync_script([k for k, _, _ in state]), Output(f"{view_name}-url", "data"),
-                            *[Input(cid, prop) for _, cid, prop in state])
-
-

@@ -1,7 +1,7 @@
-"""The drill-down's heavy arithmetic: waveform envelope, spectrogram, markers, reference band envelope, and the
-archived audio as WAV (whole actuation or one event). Array functions are pure; ``ActuationData`` and
-``wav_for`` read the archived original and keep their results in a diskcache (keyed by the recording's content
-hash, so a cached result can never belong to another file).
+"""The drill-down's heavy arithmetic: waveform envelope, spectrogram and markers, and the archived audio as WAV
+(whole actuation or one event). Array functions are pure; ``load_actuation`` and ``wav_bytes`` read the archived
+original (``load_actuation`` keeps its result in a diskcache keyed by the recording's content hash, so a cached
+result can never belong to another file).
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ from analysis.io import read_audio
 from analysis.signal.events import marker_edges
 from analysis.signal.spectra import rfft_freqs, stft_power
 
-__all__ = ["waveform_envelope", "spectrogram_db", "reference_band_envelope", "marker_times", "load_actuation",
+__all__ = ["waveform_envelope", "spectrogram_db", "marker_times", "load_actuation",
            "ActuationAudio", "wav_bytes", "EVENT_PAD_S"]
 
 #: Audio of one event is cut with this much before its onset and after its end (s), so its start is heard.
@@ -59,22 +59,6 @@ def spectrogram_db(x, *, sample_rate_hz: float, window_s: float = 0.01, hop_s: f
         freqs = freqs[groups[:-1]]
     level = 10.0 * np.log10(np.maximum(power, 1e-20))
     return (starts + n_win / 2) / fs, freqs, level
-
-
-def reference_band_envelope(model):
-    """(mean (n_slices, n_bands) in the features' level unit, spread (same shape) or None) of a reference model:
-    the per-slice reference mean and SD of each band (the SD is recovered from the model's scaling: it is the
-    scale for unit scaling and its square for Pareto scaling; plain centring keeps no spread)."""
-    mean = np.asarray(model.mean_, dtype=float)
-    scale = np.asarray(model.scale_, dtype=float)
-    if mean.ndim == 1:
-        mean = np.broadcast_to(mean, (int(model.n_slices_), mean.size))
-        scale = np.broadcast_to(scale, mean.shape)
-    if model.scaling == "unit":
-        return mean, scale
-    if model.scaling == "pareto":
-        return mean, scale**2
-    return mean, None
 
 
 def marker_times(samples, *, sample_rate_hz: float, sidecar: dict) -> tuple[float, ...]:

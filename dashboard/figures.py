@@ -108,11 +108,13 @@ def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting:
                 marker=dict(color=colour, size=size, opacity=0.9 if flagged else 0.45,
                             symbol="x" if flagged else "circle"),
                 customdata=np.column_stack([np.full(len(sub), "actuation"), sub["actuation_id"].astype(str)]),
-                text=[f"actuation {a} · {r} · lot {lt}" for a, r, lt in zip(sub["actuation_id"], sub["rig"], sub["lot"])],
+                text=[f"actuation {a} · {r} · lot {lt}"
+                      for a, r, lt in zip(sub["actuation_id"], sub["rig"], sub["lot"])],
                 hovertemplate="%{text}<br>%{y:.3g}<extra></extra>",
             ))
     for k, rig in enumerate(rigs_):
         g = p[p["rig"] == rig].sort_values("first")
+        g = g[np.isfinite(g["value"].astype(float))]  # a cell whose actuations all failed QC has no value to draw
         x = g["lot"].map(pos).to_numpy(dtype=float) + offs[rig]
         fig.add_trace(go.Scatter(
             x=x, y=g["value"].to_numpy(dtype=float), mode="lines+markers", name=str(rig),
@@ -141,7 +143,8 @@ def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting:
             shown = float(chart.to_display(yv))
             _level_line(fig, shown, -0.5, len(lot_order) - 0.5, f"{name} {shown:.3g}",
                         c["ref"] if name == "centre" else c["limit"], dash, c)
-    fig.update_xaxes(tickmode="array", tickvals=list(range(len(lot_order))), ticktext=lot_order, title="lot (in time order)")
+    fig.update_xaxes(tickmode="array", tickvals=list(range(len(lot_order))), ticktext=lot_order,
+                     title="lot (in time order)")
     fig.update_yaxes(title=f"{stat.label}" + (f" [{stat.unit}]" if stat.unit else ""),
                      type="log" if chart.log else "linear")
     fig.update_layout(clickmode="event", hovermode="closest", uirevision="lots")
@@ -326,7 +329,8 @@ def spectrogram_figure(times, freqs, level_db, *, meeting: bool = False) -> go.F
     keep = f > 0
     fig = go.Figure(go.Heatmap(x=np.asarray(times), y=f[keep], z=np.asarray(level_db)[:, keep].T,
                                colorscale="Cividis" if not meeting else "Inferno",
-                               colorbar=dict(title="dB"), hovertemplate="%{x:.3f} s · %{y:.0f} Hz: %{z:.1f} dB<extra></extra>"))
+                               colorbar=dict(title="dB"),
+                               hovertemplate="%{x:.3f} s · %{y:.0f} Hz: %{z:.1f} dB<extra></extra>"))
     fig.update_yaxes(type="log", title="frequency [Hz]")
     fig.update_xaxes(title="time [s]")
     return apply_look(fig, meeting=meeting, height=320)

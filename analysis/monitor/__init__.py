@@ -1,7 +1,9 @@
-"""Pure monitoring statistics: reference model, limits, contributions, charts, run rules, PLS/OPLS.
+"""Pure monitoring statistics: reference model, limits, contributions, charts, the lot-by-lot chart, run rules,
+ISO 5725-2 precision, PLS/OPLS.
 
-Arrays in, small frozen dataclasses out. Nothing here reads or writes files except
-ReferenceModel.save/load (paths given by the caller); nothing imports the store or the dashboard.
+Arrays (or small DataFrames) in, small frozen dataclasses out. Nothing here reads or writes files (model files are
+analysis.modelfile's; ReferenceModel only makes and reads their documents); nothing imports the store, the
+command line or the dashboard.
 """
 
 from analysis.monitor.charts import (
@@ -31,6 +33,7 @@ from analysis.monitor.limits import (
     t2_limit_new,
     t2_limit_reference,
 )
+from analysis.monitor.lotchart import MIN_LIMIT_POINTS, RULE_SETS, LotChart, lot_chart
 from analysis.monitor.model import (
     FORMAT_NAME,
     FORMAT_VERSION,
@@ -39,6 +42,7 @@ from analysis.monitor.model import (
     ReferenceModel,
 )
 from analysis.monitor.pls import OPLS, PLS1, CrossValidationResult, cross_validate
+from analysis.monitor.precision import Precision, precision_from_groups
 from analysis.monitor.rules import NELSON, RULES, WESTERN_ELECTRIC, RuleViolation, check_rules
 
 __all__ = [
@@ -53,6 +57,8 @@ __all__ = [
     "XbarSLimits", "XbarSChart", "fit_xbar_s_limits", "xbar_s_chart",
     "EwmaLimits", "EwmaChart", "fit_ewma_limits", "ewma_chart",
     "CusumLimits", "CusumChart", "fit_cusum_limits", "cusum_chart",
+    # the lot-by-lot chart, precision across rigs
+    "LotChart", "lot_chart", "RULE_SETS", "MIN_LIMIT_POINTS", "Precision", "precision_from_groups",
     # run rules
     "RuleViolation", "RULES", "WESTERN_ELECTRIC", "NELSON", "check_rules",
     # regression

@@ -9,8 +9,8 @@ Quality Control, ch. 6 and 9.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 import math
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import signal
@@ -62,7 +62,7 @@ class IndividualsChart:
 
     values: np.ndarray
     moving_ranges: np.ndarray
-    limits: "IndividualsLimits"
+    limits: IndividualsLimits
     beyond: np.ndarray
     mr_beyond: np.ndarray
 
@@ -158,7 +158,7 @@ class XbarSChart:
     s_lcl: np.ndarray
     mean_beyond: np.ndarray
     sd_beyond: np.ndarray
-    limits: "XbarSLimits"
+    limits: XbarSLimits
 
 
 @dataclass(frozen=True)
@@ -210,7 +210,7 @@ class EwmaChart:
     lcl: np.ndarray
     beyond: np.ndarray
     first_signal: int | None
-    limits: "EwmaLimits"
+    limits: EwmaLimits
 
 
 @dataclass(frozen=True)
@@ -279,7 +279,7 @@ class CusumChart:
     lower: np.ndarray
     beyond: np.ndarray
     first_signal: int | None
-    limits: "CusumLimits"
+    limits: CusumLimits
 
 
 @dataclass(frozen=True)

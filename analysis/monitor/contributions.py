@@ -1,8 +1,8 @@
 """Band contributions to Hotelling T² and SPE for scaled feature rows.
 
-T² contribution of band j: z_j·(PΛ⁻¹Pᵀz)_j, which sum to T² (Westerhuis, Gurden & Smilde 2000,
+T² contribution of band j: z_j·(PΛ⁻¹Pᵀz)_j, which sum to T² (Westerhuis et al. 2000,
 Chemometr. Intell. Lab. Syst. 51; Alcala & Qin 2009, Automatica 45 "complete decomposition").
-SPE contribution of band j: e_j² with e = z - PPᵀz, which sum to SPE (Miller, Swanson & Heckler 1998).
+SPE contribution of band j: e_j² with e = z - PPᵀz, which sum to SPE (Miller et al. 1998).
 """
 
 from __future__ import annotations

@@ -5,8 +5,8 @@ Pure functions of numbers and arrays; nothing here reads or writes files.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 import math
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import integrate, special, stats
@@ -52,7 +52,7 @@ def t2_limit_new(n, n_components, alpha):
 def t2_limit_reference(n, n_components, alpha):
     """Phase I Hotelling T² limit for an observation of the reference set itself.
 
-    ((n-1)²/n) · Beta_{1-α}(A/2, (n-A-1)/2) (Tracy, Young & Mason 1992, J. Quality Technology 24(2)).
+    ((n-1)²/n) · Beta_{1-α}(A/2, (n-A-1)/2) (Tracy et al. 1992, J. Quality Technology 24(2)).
     Requires n > A + 1.
     """
     n = _check_int(n, "n", 3)

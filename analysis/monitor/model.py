@@ -17,7 +17,7 @@ Number of components (when ``n_components=None``)
     actuations (``cv_folds`` interleaved folds otherwise). For every fold the scaling and PCA are fitted on the
     training actuations; each held-out element x_ij is predicted from the other bands of its own row by
     least-squares projection on the training loadings (missing-column imputation; the "element-wise" scheme
-    recommended by Bro, Kjeldahl, Smilde & Kiers 2008, Anal. Bioanal. Chem. 390). With orthonormal loadings P
+    recommended by Bro et al. 2008, Anal. Bioanal. Chem. 390). With orthonormal loadings P
     this has the closed form x_ij - x̂_ij = e_ij / (1 - h_j), e = z - zPPᵀ and h_j = Σ_a P_ja², so PRESS does not
     fall trivially as components are added (it grows without bound as h_j -> 1). The chosen A is the first one
     for which one more component lowers PRESS by less than ``cv_min_gain`` (2 % by default), which is never past
@@ -54,11 +54,11 @@ Actuation-level decision
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 import hashlib
 import io
 import json
 import math
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats
@@ -283,8 +283,8 @@ class ReferenceModel:
     """PCA reference model of band features for one event; see the module docstring for the methods.
 
     Parameters (keyword only): n_components (None: chosen by cross-validation), max_components,
-    scaling ("centre" | "unit" | "pareto"), centring ("slice" | "global"), cv_folds (folds by actuation when lots are not used),
-    cv_min_gain (relative PRESS gain needed to add a component), alpha (per-slice limits),
+    scaling ("centre" | "unit" | "pareto"), centring ("slice" | "global"), cv_folds (folds by actuation when lots
+    are not used), cv_min_gain (relative PRESS gain needed to add a component), alpha (per-slice limits),
     envelope_k (envelope half-width in spreads), actuation_alpha (actuation false-alarm rate).
     """
 
@@ -311,8 +311,8 @@ class ReferenceModel:
         self.envelope_k = envelope_k
         self.actuation_alpha = actuation_alpha
 
-    _PARAMS = ("n_components", "max_components", "scaling", "centring", "cv_folds", "cv_min_gain", "alpha", "envelope_k",
-               "actuation_alpha")
+    _PARAMS = ("n_components", "max_components", "scaling", "centring", "cv_folds", "cv_min_gain", "alpha",
+               "envelope_k", "actuation_alpha")
 
     def get_params(self):
         return {k: getattr(self, k) for k in self._PARAMS}
@@ -429,7 +429,7 @@ class ReferenceModel:
         self.reference_lots_ = lot_labels
         self.cv_ = CrossValidationCurve(np.arange(a_cap + 1), press, chosen, fold_kind, len(folds))
         self.t2_limit_ = t2_limit_new(n_rows, a, self.alpha)
-        # For the reference rows themselves (Phase I, Tracy, Young & Mason 1992): the beta form.
+        # For the reference rows themselves (Phase I, Tracy et al. 1992): the beta form.
         self.t2_limit_reference_ = t2_limit_reference(n_rows, a, self.alpha)
         self.spe_limit_ = spe_limit_jackson_mudholkar(self.residual_eigenvalues_, self.alpha)
         scores, t2, spe, event_spe = _project(x, mean, scale, self.loadings_, self.eigenvalues_)
@@ -546,6 +546,23 @@ class ReferenceModel:
             mean, scale = mean[idx], scale[idx]
         z = (x - mean) / scale
         return band_contributions(z, self.loadings_, self.eigenvalues_, band_centres_hz=self.band_centres_hz_)
+
+    def band_envelope(self):
+        """The reference's band levels per slice: (mean (n_slices, n_bands), spread (n_slices, n_bands) or None),
+        in the features' level unit. The spread is each band's reference SD per slice (under global centring,
+        one per band for every slice), recovered from the scaling: the scale itself for unit scaling, its square
+        for Pareto scaling; plain centring keeps no spread (None). A band constant in the reference reads 1."""
+        self._check_fitted()
+        mean = np.asarray(self.mean_, dtype=float)
+        scale = np.asarray(self.scale_, dtype=float)
+        if mean.ndim == 1:
+            mean = np.broadcast_to(mean, (int(self.n_slices_), mean.size)).copy()
+            scale = np.broadcast_to(scale, mean.shape).copy()
+        if self.scaling == "unit":
+            return mean, scale
+        if self.scaling == "pareto":
+            return mean, scale**2
+        return mean, None
 
     # ------------------------------------------------------------------ persistence
     _ARRAYS = ("mean_", "scale_", "loadings_", "eigenvalues_", "residual_eigenvalues_", "explained_variance_ratio_",

@@ -1,6 +1,6 @@
 """PLS1 (NIPALS) and OPLS regression from feature rows to one property (e.g. carrier particle size).
 
-PLS1: Wold, Sjöström & Eriksson 2001 (Chemometr. Intell. Lab. Syst. 58), NIPALS with deflation of X and y;
+PLS1: Wold et al. 2001 (Chemometr. Intell. Lab. Syst. 58), NIPALS with deflation of X and y;
 regression vector B = W(PᵀW)⁻¹q. OPLS: Trygg & Wold 2002 (J. Chemometrics 16), one predictive component and
 ``n_orthogonal`` components orthogonal to y; for a single y, OPLS with 1 + (A-1) components predicts the same
 as PLS with A components.
@@ -8,8 +8,8 @@ as PLS with A components.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 import math
+from dataclasses import dataclass
 
 import numpy as np
 

@@ -24,7 +24,7 @@ import scipy.signal
 from numpy.lib.stride_tricks import sliding_window_view
 
 from analysis.errors import ParameterError
-from analysis.signal.quality import LEVEL_FLOOR_DBFS, _mean_square_db, _number, _runs, _signal
+from analysis.signal._common import LEVEL_FLOOR_DBFS, as_signal, mean_square_db, number, runs
 
 __all__ = [
     "EventTiming",
@@ -72,7 +72,7 @@ class EventTiming:
 
 def _clean(x) -> np.ndarray:
     """The signal as float64 with non-finite samples set to 0."""
-    a = _signal("x", x).astype(np.float64, copy=False)
+    a = as_signal("x", x).astype(np.float64, copy=False)
     finite = np.isfinite(a)
     return a if finite.all() else np.where(finite, a, 0.0)
 
@@ -100,11 +100,11 @@ def marker_edges(marker, *, sample_rate_hz: float, threshold: float | None = Non
     has no edge at 0); edges closer than min_gap_s to the previous kept edge are dropped as bounce.
     Non-finite samples take the channel's median value.
     """
-    m = _signal("marker", marker).astype(np.float64, copy=False)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
-    gap = _number("min_gap_s", min_gap_s, low=0.0)
+    m = as_signal("marker", marker).astype(np.float64, copy=False)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    gap = number("min_gap_s", min_gap_s, low=0.0)
     if threshold is not None:
-        threshold = _number("threshold", threshold)
+        threshold = number("threshold", threshold)
     finite = np.isfinite(m)
     if not finite.any():
         return np.empty(0)
@@ -155,10 +155,10 @@ def spectral_flux(x, *, sample_rate_hz: float, frame_s: float = 0.005, hop_s: fl
     Returns (times_s, flux): times_s is the centre of each frame, (n·hop + N/2)/fs, float64 shape (n_frames,).
     """
     x = _clean(x)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
-    n_frame = _samples("frame_s", _number("frame_s", frame_s, low=0.0, low_open=True), fs, minimum=4)
-    hop = _samples("hop_s", _number("hop_s", hop_s, low=0.0, low_open=True), fs, minimum=1)
-    gamma = None if log_gamma is None else _number("log_gamma", log_gamma, low=0.0, low_open=True)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    n_frame = _samples("frame_s", number("frame_s", frame_s, low=0.0, low_open=True), fs, minimum=4)
+    hop = _samples("hop_s", number("hop_s", hop_s, low=0.0, low_open=True), fs, minimum=1)
+    gamma = None if log_gamma is None else number("log_gamma", log_gamma, low=0.0, low_open=True)
     return _flux(x, fs, n_frame, hop, gamma)
 
 
@@ -229,13 +229,13 @@ def _onsets(x: np.ndarray, fs: float, n_frame: int, hop: int, delta: float, lam:
 
 
 def _onset_options(fs, frame_s, hop_s, delta, lambda_, median_s, min_gap_s, log_gamma):
-    n_frame = _samples("frame_s", _number("frame_s", frame_s, low=0.0, low_open=True), fs, minimum=4)
-    hop = _samples("hop_s", _number("hop_s", hop_s, low=0.0, low_open=True), fs, minimum=1)
-    d = _number("delta", delta)
-    lam = _number("lambda_", lambda_, low=0.0)
-    med = max(1, int(round(_number("median_s", median_s, low=0.0, low_open=True) * fs / hop)))
-    gap = int(round(_number("min_gap_s", min_gap_s, low=0.0) * fs / hop))
-    gamma = None if log_gamma is None else _number("log_gamma", log_gamma, low=0.0, low_open=True)
+    n_frame = _samples("frame_s", number("frame_s", frame_s, low=0.0, low_open=True), fs, minimum=4)
+    hop = _samples("hop_s", number("hop_s", hop_s, low=0.0, low_open=True), fs, minimum=1)
+    d = number("delta", delta)
+    lam = number("lambda_", lambda_, low=0.0)
+    med = max(1, int(round(number("median_s", median_s, low=0.0, low_open=True) * fs / hop)))
+    gap = int(round(number("min_gap_s", min_gap_s, low=0.0) * fs / hop))
+    gamma = None if log_gamma is None else number("log_gamma", log_gamma, low=0.0, low_open=True)
     return n_frame, hop, d, lam, med, gap, gamma
 
 
@@ -251,7 +251,7 @@ def detect_onsets(x, *, sample_rate_hz: float, frame_s: float = 0.005, hop_s: fl
     (AIC picker, Maeda 1985), i.e. the first sample of the rise.
     """
     x = _clean(x)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
     opts = _onset_options(fs, frame_s, hop_s, delta, lambda_, median_s, min_gap_s, log_gamma)
     return _onsets(x, fs, *opts)[0]
 
@@ -274,8 +274,8 @@ def noise_floor_db(x, *, sample_rate_hz: float, frame_s: float = 0.005) -> float
     All-zero frames read LEVEL_FLOOR_DBFS (-300 dBFS); an empty signal gives LEVEL_FLOOR_DBFS.
     """
     x = _clean(x)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
-    n_frame = _samples("frame_s", _number("frame_s", frame_s, low=0.0, low_open=True), fs, minimum=1)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    n_frame = _samples("frame_s", number("frame_s", frame_s, low=0.0, low_open=True), fs, minimum=1)
     return _noise_floor(x, n_frame)
 
 
@@ -284,7 +284,7 @@ def _noise_floor(x: np.ndarray, n_frame: int) -> float:
         return LEVEL_FLOOR_DBFS
     n_frame = min(n_frame, x.size)
     _, ms = _frame_mean_squares(x, 0, x.size - x.size % n_frame, n_frame)  # whole frames only
-    return float(np.percentile(_mean_square_db(ms), _FLOOR_PERCENTILE))
+    return float(np.percentile(mean_square_db(ms), _FLOOR_PERCENTILE))
 
 
 def event_end(x, *, sample_rate_hz: float, onset_s: float, max_length_s: float, frame_s: float = 0.005,
@@ -301,15 +301,15 @@ def event_end(x, *, sample_rate_hz: float, onset_s: float, max_length_s: float, 
     Returns NaN when no frame within max_length_s reaches floor + start_above_db (no event above the noise).
     """
     x = _clean(x)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
-    n_frame = _samples("frame_s", _number("frame_s", frame_s, low=0.0, low_open=True), fs, minimum=1)
-    onset = _number("onset_s", onset_s, low=0.0)
-    length = _number("max_length_s", max_length_s, low=0.0, low_open=True)
-    floor = None if floor_db is None else _number("floor_db", floor_db)
-    start_db = _number("start_above_db", start_above_db)
-    end_db = _number("end_below_db", end_below_db)
-    min_dur = _number("min_duration_s", min_duration_s, low=0.0)
-    merge = _number("merge_gap_s", merge_gap_s, low=0.0)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    n_frame = _samples("frame_s", number("frame_s", frame_s, low=0.0, low_open=True), fs, minimum=1)
+    onset = number("onset_s", onset_s, low=0.0)
+    length = number("max_length_s", max_length_s, low=0.0, low_open=True)
+    floor = None if floor_db is None else number("floor_db", floor_db)
+    start_db = number("start_above_db", start_above_db)
+    end_db = number("end_below_db", end_below_db)
+    min_dur = number("min_duration_s", min_duration_s, low=0.0)
+    merge = number("merge_gap_s", merge_gap_s, low=0.0)
     i0 = int(round(onset * fs))
     if i0 >= x.size:
         raise ParameterError(f"onset_s must lie inside the recording (0–{x.size / fs:.6g} s); got {onset_s!r}")
@@ -322,13 +322,13 @@ def event_end(x, *, sample_rate_hz: float, onset_s: float, max_length_s: float, 
 def _event_end(x, fs, i0, n_length, n_frame, floor, start_db, end_db, n_min_dur, n_merge) -> float:
     i1 = min(x.size, i0 + max(1, n_length))
     starts, ms = _frame_mean_squares(x, i0, i1, n_frame)
-    level = _mean_square_db(ms)
+    level = mean_square_db(ms)
     on = np.flatnonzero(level >= floor + start_db)
     if on.size == 0:
         return math.nan
     idx = np.arange(level.size)
     below = (level < floor + end_db) & (idx > on[0]) & (starts >= i0 + n_min_dur)
-    run_starts, run_lengths = _runs(below)
+    run_starts, run_lengths = runs(below)
     run_stops = run_starts + run_lengths  # frame index after the run
     stop_samples = np.append(starts, i1)[run_stops]
     span = stop_samples - starts[run_starts]
@@ -357,7 +357,7 @@ def onset_candidates(x, *, sample_rate_hz: float, frame_s: float = ONSET_FRAME_S
     """
     dtype = np.float32 if np.asarray(x).dtype == np.float32 else np.float64
     x = _clean(x)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
     opts = _onset_options(fs, frame_s, hop_s, delta, lambda_, median_s, min_gap_s, log_gamma)
     return _onsets(x, fs, *opts, dtype=dtype)
 
@@ -368,7 +368,7 @@ def _energy_onset(x, fs, lo_s, hi_s, n_frame, hop, floor_db, start_db) -> float:
     if i_hi - i_lo < n_frame:
         return math.nan
     frames_ms = np.mean(sliding_window_view(x[i_lo:i_hi], n_frame)[::hop] ** 2, axis=1)
-    hot = np.flatnonzero(_mean_square_db(frames_ms) >= floor_db + start_db)
+    hot = np.flatnonzero(mean_square_db(frames_ms) >= floor_db + start_db)
     if hot.size == 0:
         return math.nan
     s = i_lo + int(hot[0]) * hop
@@ -406,18 +406,18 @@ def find_event(x, *, sample_rate_hz: float, name: str, search_start_s: float, se
     reason; this holds with a marker too (a marker with no sound after it is a missing event, not a found one).
     """
     x = _clean(x)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
     if not isinstance(name, str) or not name:
         raise ParameterError(f"name must be a non-empty string; got {name!r}")
     opts = _onset_options(fs, frame_s, hop_s, delta, lambda_, median_s, min_gap_s, log_gamma)
-    length = _number("max_length_s", max_length_s, low=0.0, low_open=True)
-    level_frame = _samples("level_frame_s", _number("level_frame_s", level_frame_s, low=0.0, low_open=True), fs,
+    length = number("max_length_s", max_length_s, low=0.0, low_open=True)
+    level_frame = _samples("level_frame_s", number("level_frame_s", level_frame_s, low=0.0, low_open=True), fs,
                            minimum=1)
-    floor = None if floor_db is None else _number("floor_db", floor_db)
-    start_db = _number("start_above_db", start_above_db)
-    end_db = _number("end_below_db", end_below_db)
-    n_min_dur = int(round(_number("min_duration_s", min_duration_s, low=0.0) * fs))
-    n_merge = int(round(_number("merge_gap_s", merge_gap_s, low=0.0) * fs))
+    floor = None if floor_db is None else number("floor_db", floor_db)
+    start_db = number("start_above_db", start_above_db)
+    end_db = number("end_below_db", end_below_db)
+    n_min_dur = int(round(number("min_duration_s", min_duration_s, low=0.0) * fs))
+    n_merge = int(round(number("merge_gap_s", merge_gap_s, low=0.0) * fs))
     try:
         marker = None if marker_s is None else float(marker_s)
     except (TypeError, ValueError):
@@ -462,7 +462,7 @@ def find_event(x, *, sample_rate_hz: float, name: str, search_start_s: float, se
                               f"({floor:.1f} dBFS) within {length * 1e3:.0f} ms")
     i_end = max(i0 + 1, int(round(end * fs)))
     peak = float(np.max(np.abs(x[i0:i_end])))
-    peak_dbfs = float(_mean_square_db(peak * peak))
+    peak_dbfs = float(mean_square_db(peak * peak))
     latency = onset - marker if marker is not None else math.nan
     return EventTiming(name, True, onset, end, end - onset, peak_dbfs, latency,
                        "marker" if marker is not None else "onset", "")

@@ -21,6 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from analysis.errors import ParameterError
+from analysis.signal._common import LEVEL_FLOOR_DBFS, as_signal, integer, mean_square_db, number, runs
 
 __all__ = [
     "QCResult",
@@ -38,9 +39,6 @@ __all__ = [
 ]
 
 CHECK_NAMES = ("clipping", "dropout", "dc_offset", "duration", "silence", "sample_rate", "snr", "marker")
-# Level reported for an all-zero stretch: finite, JSON-safe, below any sensible limit.
-LEVEL_FLOOR_DBFS = -300.0
-_FLOOR_MEAN_SQUARE = 10.0 ** (LEVEL_FLOOR_DBFS / 10.0)
 
 
 @dataclass(frozen=True)
@@ -57,61 +55,6 @@ class QCResult:
     limit: float
     passed: bool
     detail: str
-
-
-# ---------------------------------------------------------------- parameter validation (shared with events.py)
-
-def _number(name: str, value, *, low: float | None = None, high: float | None = None,
-            low_open: bool = False) -> float:
-    """A finite float in [low, high] (or (low, high] with low_open), else ParameterError naming the parameter."""
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ParameterError(f"{name} must be a number; got {value!r}") from None
-    bad = not math.isfinite(v)
-    if low is not None:
-        bad = bad or (v <= low if low_open else v < low)
-    if high is not None:
-        bad = bad or v > high
-    if bad:
-        lo = "" if low is None else (f" > {low:g}" if low_open else f" >= {low:g}")
-        hi = "" if high is None else f" <= {high:g}"
-        both = " and" if lo and hi else ""
-        raise ParameterError(f"{name} must be a finite number{lo}{both}{hi}; got {value!r}")
-    return v
-
-
-def _integer(name: str, value, *, low: int) -> int:
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
-        raise ParameterError(f"{name} must be an integer >= {low}; got {value!r}")
-    return int(value)
-
-
-def _signal(name: str, x) -> np.ndarray:
-    """The signal as a 1-D float array (float32 kept, anything else as float64)."""
-    a = np.asarray(x)
-    if a.ndim != 1:
-        raise ParameterError(f"{name} must be a 1-D array of samples; got an array of shape {a.shape}")
-    if a.dtype != np.float32:
-        try:
-            a = a.astype(np.float64, copy=False)
-        except (TypeError, ValueError):
-            raise ParameterError(f"{name} must hold numbers; got dtype {a.dtype}") from None
-    return a
-
-
-def _runs(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Start indices and lengths of the runs of True in a 1-D boolean mask (vectorised with np.diff)."""
-    padded = np.concatenate(([0], mask.astype(np.int8), [0]))
-    change = np.diff(padded)
-    starts = np.flatnonzero(change == 1)
-    stops = np.flatnonzero(change == -1)
-    return starts, stops - starts
-
-
-def _mean_square_db(ms: float | np.ndarray):
-    """10·log10 of a mean square, with all-zero input at LEVEL_FLOOR_DBFS."""
-    return 10.0 * np.log10(np.maximum(ms, _FLOOR_MEAN_SQUARE))
 
 
 def _non_finite(x: np.ndarray) -> int:
@@ -139,13 +82,13 @@ def check_clipping(x, *, clip_level: float = 0.999, min_run: int = 3, max_fracti
     value: that fraction (0..1); limit: max_fraction; passed: value <= max_fraction. NaN samples are never at
     the rail, ±inf always are.
     """
-    x = _signal("x", x)
-    level = _number("clip_level", clip_level, low=0.0, low_open=True)
-    run = _integer("min_run", min_run, low=1)
-    limit = _number("max_fraction", max_fraction, low=0.0, high=1.0)
+    x = as_signal("x", x)
+    level = number("clip_level", clip_level, low=0.0, low_open=True)
+    run = integer("min_run", min_run, low=1)
+    limit = number("max_fraction", max_fraction, low=0.0, high=1.0)
     if x.size == 0:
         return _empty("clipping", limit)
-    starts, lengths = _runs(np.abs(x) >= level)
+    starts, lengths = runs(np.abs(x) >= level)
     long_runs = lengths[lengths >= run]
     fraction = float(long_runs.sum()) / x.size
     passed = fraction <= limit
@@ -160,12 +103,12 @@ def check_dropouts(x, *, sample_rate_hz: float, max_dropout_s: float = 0.002) ->
     The detail also counts the runs of zeros longer than the limit. Isolated exact zeros are ordinary in
     quantised audio, so only the longest run is judged.
     """
-    x = _signal("x", x)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
-    limit = _number("max_dropout_s", max_dropout_s, low=0.0)
+    x = as_signal("x", x)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    limit = number("max_dropout_s", max_dropout_s, low=0.0)
     if x.size == 0:
         return _empty("dropout", limit)
-    _, lengths = _runs(x == 0)
+    _, lengths = runs(x == 0)
     longest = float(lengths.max()) / fs if lengths.size else 0.0
     n_over = int(np.count_nonzero(lengths / fs > limit))
     passed = longest <= limit
@@ -176,8 +119,8 @@ def check_dropouts(x, *, sample_rate_hz: float, max_dropout_s: float = 0.002) ->
 
 def check_dc_offset(x, *, max_dc_offset: float = 0.01) -> QCResult:
     """|mean of x| in full-scale units; passed when it is no more than max_dc_offset."""
-    x = _signal("x", x)
-    limit = _number("max_dc_offset", max_dc_offset, low=0.0)
+    x = as_signal("x", x)
+    limit = number("max_dc_offset", max_dc_offset, low=0.0)
     if x.size == 0:
         return _empty("dc_offset", limit)
     n_bad = _non_finite(x)
@@ -191,9 +134,9 @@ def check_dc_offset(x, *, max_dc_offset: float = 0.01) -> QCResult:
 
 def check_duration(n_samples: int, *, sample_rate_hz: float, min_duration_s: float) -> QCResult:
     """Recording length n_samples/sample_rate_hz in s; passed when it is at least min_duration_s."""
-    n = _integer("n_samples", n_samples, low=0)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
-    limit = _number("min_duration_s", min_duration_s, low=0.0)
+    n = integer("n_samples", n_samples, low=0)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    limit = number("min_duration_s", min_duration_s, low=0.0)
     duration = n / fs
     passed = duration >= limit
     return QCResult("duration", duration, limit, passed,
@@ -205,14 +148,14 @@ def check_silence(x, *, min_rms_dbfs: float = -70.0) -> QCResult:
 
     An all-zero signal reads LEVEL_FLOOR_DBFS (-300 dBFS) and fails.
     """
-    x = _signal("x", x)
-    limit = _number("min_rms_dbfs", min_rms_dbfs)
+    x = as_signal("x", x)
+    limit = number("min_rms_dbfs", min_rms_dbfs)
     if x.size == 0:
         return _empty("silence", limit)
     n_bad = _non_finite(x)
     if n_bad:
         return _not_evaluated("silence", limit, n_bad, x.size)
-    level = float(_mean_square_db(np.mean(np.square(x, dtype=np.float64))))
+    level = float(mean_square_db(np.mean(np.square(x, dtype=np.float64))))
     passed = level >= limit
     return QCResult("silence", level, limit, passed,
                     f"Overall RMS level {level:.1f} dBFS (at least {limit:.1f} dBFS needed).")
@@ -223,8 +166,8 @@ def check_sample_rate(sample_rate_hz: float, *, min_hz: float, max_hz: float) ->
 
     value: the rate in Hz; limit: the bound it is compared with (min_hz when below it, else max_hz).
     """
-    lo = _number("min_hz", min_hz, low=0.0, low_open=True)
-    hi = _number("max_hz", max_hz, low=lo)
+    lo = number("min_hz", min_hz, low=0.0, low_open=True)
+    hi = number("max_hz", max_hz, low=lo)
     try:
         fs = float(sample_rate_hz)
     except (TypeError, ValueError):
@@ -248,15 +191,15 @@ def check_snr(x, *, sample_rate_hz: float, first_event_s: float, background_max_
     value: event level - background level in dB; limit: min_snr_db; passed: value >= min_snr_db.
     A recording without a usable quiet stretch, or whose first event lies outside it, fails with value NaN.
     """
-    x = _signal("x", x)
-    fs = _number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
-    bg_max = _number("background_max_s", background_max_s, low=0.0, low_open=True)
-    limit = _number("min_snr_db", min_snr_db)
-    guard = _number("guard_s", guard_s, low=0.0)
-    bg_min = _number("min_background_s", min_background_s, low=0.0, low_open=True)
-    frame = _number("frame_s", frame_s, low=0.0, low_open=True)
+    x = as_signal("x", x)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    bg_max = number("background_max_s", background_max_s, low=0.0, low_open=True)
+    limit = number("min_snr_db", min_snr_db)
+    guard = number("guard_s", guard_s, low=0.0)
+    bg_min = number("min_background_s", min_background_s, low=0.0, low_open=True)
+    frame = number("frame_s", frame_s, low=0.0, low_open=True)
     if event_length_s is not None:
-        event_length = _number("event_length_s", event_length_s, low=0.0, low_open=True)
+        event_length = number("event_length_s", event_length_s, low=0.0, low_open=True)
     try:
         t0 = float(first_event_s)
     except (TypeError, ValueError):
@@ -277,7 +220,7 @@ def check_snr(x, *, sample_rate_hz: float, first_event_s: float, background_max_
         return QCResult("snr", math.nan, limit, False,
                         f"Not evaluated: only {_ms(bg_len / fs)} of quiet signal before the first event at "
                         f"{t0:.3f} s (at least {_ms(bg_min)} needed, ending {_ms(guard)} before the event).")
-    background_db = float(_mean_square_db(np.mean(np.square(x[bg_start:bg_stop], dtype=np.float64))))
+    background_db = float(mean_square_db(np.mean(np.square(x[bg_start:bg_stop], dtype=np.float64))))
 
     ev_start = min(int(t0 * fs), n - 1)
     ev_stop = n if event_length_s is None else min(n, ev_start + max(1, int(round(event_length * fs))))
@@ -285,7 +228,7 @@ def check_snr(x, *, sample_rate_hz: float, first_event_s: float, background_max_
     width = max(1, min(seg.size, int(round(frame * fs))))
     # Mean square of every window of `width` samples, from one cumulative sum.
     csum = np.concatenate(([0.0], np.cumsum(seg * seg)))
-    event_db = float(_mean_square_db(np.max(csum[width:] - csum[:-width]) / width))
+    event_db = float(mean_square_db(np.max(csum[width:] - csum[:-width]) / width))
 
     snr = event_db - background_db
     passed = snr >= limit
@@ -302,12 +245,12 @@ def check_markers(found: int, expected: int, *, source: str, problem: str | None
     source is missing or unreadable (e.g. "the file has 1 channel"); the check then fails with that reason.
     value: edges found (NaN with a problem); limit: edges expected; passed: found == expected and no problem.
     """
-    exp = _integer("expected", expected, low=0)
+    exp = integer("expected", expected, low=0)
     if not isinstance(source, str) or not source:
         raise ParameterError(f"source must be a non-empty string naming where the markers came from; got {source!r}")
     if problem is not None:
         return QCResult("marker", math.nan, float(exp), False, f"No markers from {source}: {problem}.")
-    got = _integer("found", found, low=0)
+    got = integer("found", found, low=0)
     passed = got == exp
     detail = f"{got} marker edge{'s' if got != 1 else ''} on {source} ({exp} expected)."
     return QCResult("marker", float(got), float(exp), passed, detail)
@@ -323,7 +266,7 @@ def run_quality_checks(x, *, sample_rate_hz: float, sample_rate_min_hz: float, s
     Keyword names follow the device profile's [audio] and [quality] keys. The SNR and marker checks need event
     times and are run by the caller.
     """
-    x = _signal("x", x)
+    x = as_signal("x", x)
     return (
         check_sample_rate(sample_rate_hz, min_hz=sample_rate_min_hz, max_hz=sample_rate_max_hz),
         check_duration(x.size, sample_rate_hz=sample_rate_hz, min_duration_s=min_duration_s),

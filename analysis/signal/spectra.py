@@ -1,6 +1,6 @@
 """Short-time power spectra of an event on a fixed slice grid.
 
-Scalings follow Heinzel, Rüdiger & Schilling (2002), "Spectrum and spectral density estimation by the DFT":
+Scalings follow Heinzel et al. (2002), "Spectrum and spectral density estimation by the DFT":
 with S1 = Σw and S2 = Σw², the one-sided power spectrum is 2|X_k|²/S1² and the power spectral density is
 2|X_k|²/(fs·S2); the DC bin (and the Nyquist bin of an even-length frame) is not doubled.
 """

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from dash import dcc, html
 
+from analysis.cautions import CAUTIONS
+
 from .common import card, view_header
 
 NAME = "about"
@@ -13,8 +15,6 @@ IN_MENU = True
 
 
 def layout(ctx, q: dict):
-    from ..app import CAUTIONS
-
     return html.Div([
         view_header("About Harken", "Lab-wide acoustic trend review for drug-delivery device test rigs."),
         card(html.H2("What it does"), html.P(

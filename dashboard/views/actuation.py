@@ -8,10 +8,13 @@ import numpy as np
 from dash import Input, Output, State, dcc, html
 
 from analysis.errors import AnalysisError
-from analysis.store import StoreError
+from analysis.store import StoreError, queries
+from analysis.triage import actuation_state
 
-from .. import drill, figures, queries, triage
+from .. import drill, figures
 from ..audio import audio_url
+from ..urlstate import register_url_state
+from ..words import describe_flag
 from .common import card, fmt, pick, table, view_header
 
 NAME = "actuation"
@@ -39,7 +42,8 @@ def default_event(detail: dict, flags_df) -> str | None:
     return found[0] if found else (list(ev["name"])[0] if len(ev) else None)
 
 
-def actuation_figures(ctx, actuation_id: int, event: str | None, slice_choice="worst", *, meeting: bool = False) -> dict:
+def actuation_figures(ctx, actuation_id: int, event: str | None, slice_choice="worst", *,
+                      meeting: bool = False) -> dict:
     """The drill-down's figures and the chosen slice: keys waveform, spectrogram, bands, slices, contributions,
     slice_options, slice_value, note."""
     with ctx.store.read() as conn:
@@ -73,11 +77,13 @@ def actuation_figures(ctx, actuation_id: int, event: str | None, slice_choice="w
     worst = int(np.argmax(np.maximum(tr.t2 / tr.t2_limit, tr.spe / tr.spe_limit)))
     options = [{"label": f"worst slice ({worst}, {times[worst]:.3f} s)", "value": "worst"}] + [
         {"label": f"slice {i} ({t:.3f} s)", "value": str(i)} for i, t in enumerate(times)]
-    s = worst if slice_choice in (None, "worst") or not str(slice_choice).isdigit() else min(int(slice_choice), len(times) - 1)
-    mean, spread = drill.reference_band_envelope(model)
+    s = (worst if slice_choice in (None, "worst") or not str(slice_choice).isdigit()
+         else min(int(slice_choice), len(times) - 1))
+    mean, spread = model.band_envelope()
     unit = str(d["events"].set_index("name").get("level_reference", {}).get(event, "dB") or "dB")
     label = f"{event.replace('_', ' ')} — slice {s} at {times[s]:.3f} s from the onset"
-    out["bands"] = figures.band_levels_figure(centres, x[s], mean[s], spread[s] if spread is not None else np.zeros_like(mean[s]),
+    out["bands"] = figures.band_levels_figure(centres, x[s], mean[s],
+                                              spread[s] if spread is not None else np.zeros_like(mean[s]),
                                               k=3.0, slice_label=f"Band levels, {label}", unit=unit, meeting=meeting)
     out["slices"] = figures.slice_stats_figure(times, tr.t2, tr.spe, t2_limit=tr.t2_limit, spe_limit=tr.spe_limit,
                                                labels=[f"actuation {actuation_id}"], meeting=meeting)
@@ -85,7 +91,8 @@ def actuation_figures(ctx, actuation_id: int, event: str | None, slice_choice="w
     out["contributions"] = figures.contributions_figure(centres, con.t2, con.spe,
                                                         slice_label=f"Band contributions, {label}", meeting=meeting)
     out.update(slice_options=options, slice_value="worst" if s == worst and slice_choice in (None, "worst") else str(s),
-               note=f"Model version {tr.model_version}; T² limit {fmt(tr.t2_limit)}, SPE limit {fmt(tr.spe_limit)} per slice.")
+               note=f"Model version {tr.model_version}; T² limit {fmt(tr.t2_limit)}, "
+                    f"SPE limit {fmt(tr.spe_limit)} per slice.")
     return out
 
 
@@ -96,23 +103,23 @@ def layout(ctx, q: dict, actuation_id: int):
             return card(html.H2(f"No actuation {actuation_id}"),
                         html.P("It is not in this store (a link from another store?)."),
                         dcc.Link("Back to Today", href="/"))
-        fl = queries.flags_for(conn, [actuation_id])
+        fl = queries.flags(conn, actuation_ids=[actuation_id])
         ref_id = None
     ev = d["events"]
     names = list(ev["name"])
     event = pick(q.get("event"), names, default_event(d, fl))
     with ctx.store.read() as conn:
         ref_id = queries.typical_reference_actuation(conn, d["profile"], event) if event else None
-    flag_items = [html.Li(triage.describe_flag(r.statistic, r.event, r.reason, r.value, r.limit),
+    flag_items = [html.Li(describe_flag(r.statistic, r.event, r.reason, r.value, r.limit),
                           className="flag-line") for r in fl.itertuples()]
-    state = triage.actuation_state(passed_qc=bool(d["passed_qc"]), n_model_flags=int(fl["statistic"].map(
+    state = actuation_state(passed_qc=bool(d["passed_qc"]), n_model_flags=int(fl["statistic"].map(
         lambda s: not str(s).startswith("qc:")).sum()) if len(fl) else 0,
         n_qc_flags=int(fl["statistic"].str.startswith("qc:").sum()) if len(fl) else 0)
     meta = [("Site", d["site"]), ("Rig", d["rig"]), ("Lot", d["lot"]), ("Unit", d["unit"]),
             ("Actuation no.", d["actuation"]), ("Recorded", d["recorded_at_text"]), ("Device profile", d["profile"]),
             ("File", d["original_name"]), ("Sample rate", f"{d['sample_rate_hz']} Hz"),
-            ("Channels", d["channels"]), ("Duration", f"{fmt(d['duration_s'])} s"), ("Markers from", d["marker_source"]),
-            ("Notes", d["sidecar"].get("notes", ""))]
+            ("Channels", d["channels"]), ("Duration", f"{fmt(d['duration_s'])} s"),
+            ("Markers from", d["marker_source"]), ("Notes", d["sidecar"].get("notes", ""))]
     players = [html.Div(className="player", children=[
         html.Div("This actuation", className="player-title"),
         html.Audio(id="actuation-audio-this", src=audio_url(actuation_id), controls=True, preload="metadata"),
@@ -130,7 +137,8 @@ def layout(ctx, q: dict, actuation_id: int):
                                                               preload="none")]),
         ]))
     else:
-        players.append(html.P("No active reference model for this event: no typical reference actuation to compare.",
+        players.append(html.P("No active reference model for this event: "
+                              "no typical reference actuation to compare.",
                               className="muted"))
     return html.Div([
         view_header(f"Actuation {actuation_id}",
@@ -150,9 +158,11 @@ def layout(ctx, q: dict, actuation_id: int):
                 id="actuation-event", value=event, clearable=False,
                 options=[{"label": n.replace("_", " "), "value": n} for n in names])], className="filter"),
             html.Label([html.Span("Slice", className="filter-label"), dcc.Dropdown(
-                id="actuation-slice", value=q.get("slice", "worst") if str(q.get("slice", "worst")).isdigit() else "worst",
+                id="actuation-slice",
+                value=q.get("slice", "worst") if str(q.get("slice", "worst")).isdigit() else "worst",
                 clearable=False, options=[{"label": "worst slice", "value": "worst"}] + (
-                    [{"label": f"slice {q['slice']}", "value": q["slice"]}] if str(q.get("slice", "")).isdigit() else []))],
+                    [{"label": f"slice {q['slice']}", "value": q["slice"]}]
+                    if str(q.get("slice", "")).isdigit() else []))],
                 className="filter filter-wide"),
             html.P(id="actuation-note", className="muted")])),
         card(dcc.Graph(id="actuation-waveform", config={"displaylogo": False}),
@@ -167,8 +177,9 @@ def layout(ctx, q: dict, actuation_id: int):
                 ("check_name", "Check"), ("passed", "Passed"), ("value", "Value"), ("limit_value", "Limit"),
                 ("detail", "Detail", str)], id="actuation-qc",
                 row_class=lambda r: None if r["passed"] else "row-flagged")),
-            card(html.H3("Metadata"), html.Table(html.Tbody([html.Tr([html.Th(k), html.Td(fmt(v) if not isinstance(v, str) else v)])
-                                                             for k, v in meta]), className="app-table", id="actuation-meta"),
+            card(html.H3("Metadata"),
+                 html.Table(html.Tbody([html.Tr([html.Th(k), html.Td(fmt(v) if not isinstance(v, str) else v)])
+                                        for k, v in meta]), className="app-table", id="actuation-meta"),
                  html.H3("Events"), table(ev, [("name", "Event", str), ("found", "Found"), ("onset_s", "Onset [s]"),
                                                ("duration_s", "Duration [s]"), ("peak_dbfs", "Peak [dBFS]"),
                                                ("latency_s", "Latency [s]"), ("method", "Found by", str),
@@ -179,8 +190,6 @@ def layout(ctx, q: dict, actuation_id: int):
 
 
 def register(app, ctx):
-    from ..app import register_url_state
-
     register_url_state(app, NAME, URL_STATE)
 
     @app.callback(Output("actuation-waveform", "figure"), Output("actuation-spectrogram", "figure"),

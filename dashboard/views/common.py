@@ -8,7 +8,7 @@ from datetime import date
 import pandas as pd
 from dash import dcc, html
 
-from .. import queries
+from analysis.store import STATISTICS, Filters
 
 __all__ = ["split_list", "parse_day", "table", "filter_bar", "filters_from", "stat_options", "fmt", "card",
            "pick", "view_header"]
@@ -62,8 +62,8 @@ def card(*children, class_name: str = "", **kw):
 
 
 def view_header(title: str, subtitle: str = ""):
-    return html.Div(className="view-header", children=[html.H1(title),
-                                                       html.P(subtitle, className="view-subtitle") if subtitle else None])
+    return html.Div(className="view-header",
+                    children=[html.H1(title), html.P(subtitle, className="view-subtitle") if subtitle else None])
 
 
 def table(df: pd.DataFrame, columns, *, id=None, link=None, class_name: str = "app-table", row_class=None):
@@ -86,7 +86,7 @@ def table(df: pd.DataFrame, columns, *, id=None, link=None, class_name: str = "a
 
 
 def stat_options():
-    return [{"label": s.label, "value": s.key} for s in queries.STATISTICS.values()]
+    return [{"label": s.label, "value": s.key} for s in STATISTICS.values()]
 
 
 def filter_bar(view: str, ch: dict, q: dict, *, want=("profile", "event", "stat", "site", "rig", "dates"),
@@ -97,8 +97,9 @@ def filter_bar(view: str, ch: dict, q: dict, *, want=("profile", "event", "stat"
     profiles = ch["profiles"]
     profile = pick(q.get("profile"), profiles, profiles[0] if profiles else None)
     events = ch["events"].get(profile, []) if profile else []
-    event = pick(q.get("event"), events, "dose_release" if "dose_release" in events else (events[0] if events else None))
-    stat = pick(q.get("stat"), list(queries.STATISTICS), default_stat)
+    event = pick(q.get("event"), events,
+                 "dose_release" if "dose_release" in events else (events[0] if events else None))
+    stat = pick(q.get("stat"), list(STATISTICS), default_stat)
     sites_ = [s for s in split_list(q.get("site")) if s in ch["sites"]]
     rig_names = [r for r, _ in ch["rigs"]]
     rigs_ = [r for r in split_list(q.get("rig")) if r in rig_names]
@@ -113,7 +114,8 @@ def filter_bar(view: str, ch: dict, q: dict, *, want=("profile", "event", "stat"
                                                              clearable=False)))
     if "event" in want:
         parts.append(labelled("Event", dcc.Dropdown(id=f"{view}-event", value=event, clearable=False,
-                                                    options=[{"label": e.replace("_", " "), "value": e} for e in events])))
+                                                    options=[{"label": e.replace("_", " "), "value": e}
+                                                             for e in events])))
     if "stat" in want:
         parts.append(labelled("Statistic", dcc.Dropdown(id=f"{view}-stat", options=stat_options(), value=stat,
                                                         clearable=False, className="filter-wide")))
@@ -122,7 +124,8 @@ def filter_bar(view: str, ch: dict, q: dict, *, want=("profile", "event", "stat"
                                                     placeholder="all sites")))
     if "rig" in want:
         parts.append(labelled("Rigs", dcc.Dropdown(id=f"{view}-rig", multi=True, value=rigs_, placeholder="all rigs",
-                                                   options=[{"label": f"{r} ({s})", "value": r} for r, s in ch["rigs"]])))
+                                                   options=[{"label": f"{r} ({s})", "value": r}
+                                                            for r, s in ch["rigs"]])))
     if "dates" in want:
         parts.append(labelled("Recorded (UTC days)", dcc.DatePickerRange(
             id=f"{view}-dates", start_date=d_from.isoformat() if d_from else None,
@@ -132,6 +135,6 @@ def filter_bar(view: str, ch: dict, q: dict, *, want=("profile", "event", "stat"
     return html.Div(parts, className="filter-bar")
 
 
-def filters_from(profile, sites_, rigs_, start_date, end_date, lots_=()) -> queries.Filters:
-    return queries.Filters(profile=profile or None, sites=tuple(split_list(sites_)), rigs=tuple(split_list(rigs_)),
+def filters_from(profile, sites_, rigs_, start_date, end_date, lots_=()) -> Filters:
+    return Filters(profile=profile or None, sites=tuple(split_list(sites_)), rigs=tuple(split_list(rigs_)),
                            lots=tuple(split_list(lots_)), date_from=parse_day(start_date), date_to=parse_day(end_date))

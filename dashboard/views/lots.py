@@ -5,9 +5,12 @@ from __future__ import annotations
 
 from dash import Input, Output, dcc, html
 
-from analysis.monitor import RULES
+from analysis.monitor import RULE_SETS, RULES, lot_chart
+from analysis.store import Filters, queries, statistic
 
-from .. import charting, figures, queries
+from .. import figures
+from ..cache import cached_query
+from ..urlstate import register_url_state
 from .common import card, filter_bar, filters_from, fmt, pick, split_list, table, view_header
 
 NAME = "lots"
@@ -26,20 +29,19 @@ URL_STATE = [
 def _chart_queries(conn, stat_key, event, filters, by_rig, cloud, max_points):
     points = queries.lot_points(conn, stat_key, event, filters, by_rig=by_rig)
     n = int(points["n"].sum()) if len(points) else 0
-    return (points, queries.reference_lots_of(conn, filters.profile, event),
-            queries.actuation_cloud(conn, stat_key, event, filters, max_points=max_points, n_total=n) if cloud else None)
+    return (points, queries.reference_lots(conn, filters.profile, event),
+            queries.actuation_cloud(conn, stat_key, event, filters, max_points=max_points, n_total=n)
+            if cloud else None)
 
 
-def lots_chart_data(store, stat_key: str, event: str, filters: queries.Filters, *, by_rig: bool = True,
+def lots_chart_data(store, stat_key: str, event: str, filters: Filters, *, by_rig: bool = True,
                     rules: str = "we", cloud: bool = True, max_points: int = 4000, cache=None):
     """(LotChart, thinned actuation cloud or None, Statistic): everything the chart draws. The SQL aggregates
     are kept in ``cache`` (a diskcache) until the store changes."""
-    from ..cache import cached_query
-
-    stat = queries.statistic(stat_key)
+    stat = statistic(stat_key)
     points, ref, cl = cached_query(store, cache, "lots", _chart_queries, stat_key, event, filters, by_rig, cloud,
                                    max_points)
-    chart = charting.lot_chart(points, reference_lots=ref, log=stat.log, rules=rules)
+    chart = lot_chart(points, reference_lots=ref, log=stat.log, rules=rules)
     return chart, cl, stat
 
 
@@ -61,7 +63,7 @@ def layout(ctx, q: dict):
     with ctx.store.read() as conn:
         ch = queries.choices(conn)
     group = pick(q.get("group"), ("rig", "pooled"), "rig")
-    rules = pick(q.get("rules"), tuple(charting.RULE_SETS), "we")
+    rules = pick(q.get("rules"), tuple(RULE_SETS), "we")
     cloud = [v for v in split_list(q.get("cloud", "on")) if v == "on"]
     return html.Div([
         view_header("Lots", "Lot-by-lot control chart of a per-actuation statistic. Click a single actuation to "
@@ -69,7 +71,8 @@ def layout(ctx, q: dict):
         card(filter_bar(NAME, ch, q), html.Div(className="filter-bar", children=[
             html.Label([html.Span("Points", className="filter-label"), dcc.RadioItems(
                 id="lots-group", value=group, inline=True,
-                options=[{"label": " one line per rig", "value": "rig"}, {"label": " all rigs pooled", "value": "pooled"}])],
+                options=[{"label": " one line per rig", "value": "rig"},
+                         {"label": " all rigs pooled", "value": "pooled"}])],
                 className="filter"),
             html.Label([html.Span("Run rules", className="filter-label"), dcc.RadioItems(
                 id="lots-rules", value=rules, inline=True,
@@ -87,8 +90,6 @@ def layout(ctx, q: dict):
 
 
 def register(app, ctx):
-    from ..app import register_url_state
-
     register_url_state(app, NAME, URL_STATE)
 
     @app.callback(Output("lots-chart", "figure"), Output("lots-summary", "children"),

@@ -7,8 +7,9 @@ import uuid
 
 from dash import Input, Output, State, dcc, html
 
-from .. import queries
-from .common import card, fmt, table, view_header
+from analysis.store import queries
+
+from .common import card, table, view_header
 
 NAME = "references"
 PATH = "/references"
@@ -18,9 +19,10 @@ IN_MENU = True
 
 def models_view(store) -> html.Div:
     with store.read() as conn:
-        df = queries.models_table(conn)
+        df = queries.models(conn, counts=True)
     if df.empty:
         return html.P("No reference model yet: build one below from lots of known-good devices.", id="references-table")
+    df = df.sort_values(["profile", "event", "version"], ascending=[True, True, False])  # newest version first
     df["lots"] = df["reference_lots"].map(", ".join)
     df["params"] = df["parameters"].map(lambda p: ", ".join(f"{k}={v}" for k, v in p.items() if v is not None))
     df["made"] = [f"{who}, {str(at)[:16]} UTC" for who, at in zip(df["created_by"], df["created_at"])]
@@ -35,7 +37,8 @@ def models_view(store) -> html.Div:
 def build_models(store_url, files_dir, profile: str, lots_, events_, person: str, progress=lambda i, n, msg: None):
     """Fit and store one new active version per event from ``lots_`` (analysis.store.build_reference), calling
     progress(done, total, message) after each event. Opens its own store connection (it runs in a job process)."""
-    from analysis.store import Store, build_reference
+    from analysis.references import build_reference
+    from analysis.store import Store
 
     names = list(events_)
     done = []
@@ -54,7 +57,7 @@ def layout(ctx, q: dict):
         ref_now = {}
         for p, evs in ch["events"].items():
             for e in evs:
-                ref_now[(p, e)] = queries.reference_lots_of(conn, p, e)
+                ref_now[(p, e)] = queries.reference_lots(conn, p, e)
     profile = ch["profiles"][0] if ch["profiles"] else None
     events = ch["events"].get(profile, []) if profile else []
     current = sorted({lot for v in ref_now.values() for lot in v})
@@ -68,7 +71,8 @@ def layout(ctx, q: dict):
                     "It is recorded in the store's audit log under your name.", className="muted"),
              html.Div(className="filter-bar", children=[
                  html.Label([html.Span("Device profile", className="filter-label"), dcc.Dropdown(
-                     id="references-profile", options=ch["profiles"], value=profile, clearable=False)], className="filter"),
+                     id="references-profile", options=ch["profiles"], value=profile, clearable=False)],
+                     className="filter"),
                  html.Label([html.Span("Events", className="filter-label"), dcc.Checklist(
                      id="references-events", options=events, value=events, inline=True)], className="filter"),
                  html.Label([html.Span("Your name", className="filter-label"), dcc.Input(

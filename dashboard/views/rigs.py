@@ -8,7 +8,12 @@ import math
 import pandas as pd
 from dash import Input, Output, dcc, html
 
-from .. import figures, queries
+from analysis.monitor import precision_from_groups
+from analysis.store import Filters, queries, statistic
+
+from .. import figures
+from ..cache import cached_query
+from ..urlstate import register_url_state
 from .common import card, filter_bar, filters_from, fmt, table, view_header
 
 NAME = "rigs"
@@ -22,27 +27,6 @@ URL_STATE = [
 ]
 
 
-def precision_summary(summary: pd.DataFrame) -> dict:
-    """Repeatability and reproducibility across rigs (ISO 5725-2, one-way layout with unequal group sizes):
-    s_r² = Σ(n_i - 1)s_i² / Σ(n_i - 1); s_d² = Σ n_i (m_i - m̄)² / (p - 1) with m̄ the weighted mean;
-    n̄ = (N - Σn_i²/N) / (p - 1); s_L² = max(0, (s_d² - s_r²) / n̄); s_R² = s_r² + s_L².
-    Input rows: n, mean, sd per rig. Returns p, s_r, s_L, s_R (NaN when fewer than 2 rigs have 2 values)."""
-    s = summary[(summary["n"] >= 2) & summary["sd"].notna()]
-    p = len(s)
-    if p < 2:
-        return {"p": p, "s_r": math.nan, "s_L": math.nan, "s_R": math.nan}
-    n = s["n"].astype(float)
-    m = s["mean"].astype(float)
-    sd = s["sd"].astype(float)
-    N = n.sum()
-    sr2 = float(((n - 1) * sd**2).sum() / (n - 1).sum())
-    mbar = float((n * m).sum() / N)
-    sd2 = float((n * (m - mbar) ** 2).sum() / (p - 1))
-    nbar = float((N - (n**2).sum() / N) / (p - 1))
-    sL2 = max(0.0, (sd2 - sr2) / nbar)
-    return {"p": p, "s_r": math.sqrt(sr2), "s_L": math.sqrt(sL2), "s_R": math.sqrt(sr2 + sL2)}
-
-
 def _rig_queries(conn, stat_key, event, filters):
     summary = queries.rig_summary(conn, stat_key, event, filters)
     lo, hi = (summary["lo"].min(), summary["hi"].max()) if summary["n"].sum() else (None, None)
@@ -51,11 +35,9 @@ def _rig_queries(conn, stat_key, event, filters):
             queries.reference_summary(conn, stat_key, event, filters))
 
 
-def rigs_data(store, stat_key: str, event: str, filters: queries.Filters, *, cache=None) -> dict:
+def rigs_data(store, stat_key: str, event: str, filters: Filters, *, cache=None) -> dict:
     """summary (per rig, with offset from the reference in reference SDs), histogram, reference, precision.
     The SQL aggregates are kept in ``cache`` (a diskcache) until the store changes."""
-    from ..cache import cached_query
-
     summary, (edges, hist), ref = cached_query(store, cache, "rigs", _rig_queries, stat_key, event, filters)
     summary = summary.copy()
     if ref and ref["sd"] and ref["sd"] > 0:
@@ -63,7 +45,7 @@ def rigs_data(store, stat_key: str, event: str, filters: queries.Filters, *, cac
     else:
         summary["offset_sd"] = math.nan
     return {"summary": summary, "edges": edges, "hist": hist, "reference": ref,
-            "precision": precision_summary(summary)}
+            "precision": precision_from_groups(summary["n"], summary["mean"], summary["sd"])}
 
 
 def _shown(stat, v):
@@ -80,11 +62,12 @@ def numbers_table(data: dict, stat) -> html.Div:
             ("sd", f"SD ({unit})" if unit else "SD"), ("offset_sd", "Offset from reference [ref. SD]"),
             ("flags_per_1000", "Flagged per 1,000"), ("qc_failures_per_1000", "QC failed per 1,000")]
     pr, ref = data["precision"], data["reference"]
-    words = (f"Across {pr['p']} rigs: repeatability SD s_r = {fmt(pr['s_r'])}, between-rig SD s_L = {fmt(pr['s_L'])}, "
-             f"reproducibility SD s_R = {fmt(pr['s_R'])} (ISO 5725-2, {unit or 'statistic units'}).")
+    words = (f"Across {pr.p} rigs: repeatability SD s_r = {fmt(pr.s_r)}, between-rig SD s_L = {fmt(pr.s_L)}, "
+             f"reproducibility SD s_R = {fmt(pr.s_R)} (ISO 5725-2, {unit or 'statistic units'}).")
     refw = (f"Reference: {ref['n']} actuations of lots {', '.join(ref['lots'])}, mean {_shown(stat, ref['mean'])}, "
             f"SD {fmt(ref['sd'])}." if ref else "No active reference model for this event: no offsets.")
-    return html.Div([table(s, cols, id="rigs-table"), html.P(words, id="rigs-precision"), html.P(refw, className="muted")])
+    return html.Div([table(s, cols, id="rigs-table"), html.P(words, id="rigs-precision"),
+                     html.P(refw, className="muted")])
 
 
 def layout(ctx, q: dict):
@@ -97,15 +80,14 @@ def layout(ctx, q: dict):
         card(html.H2("Numbers"), dcc.Loading(html.Div(id="rigs-numbers"), type="dot")),
         html.Div(className="grid-2", children=[
             card(html.H2("Distribution per rig"), dcc.Graph(id="rigs-distribution", config={"displaylogo": False})),
-            card(html.H2("Flag and quality-check failure rates"), dcc.Graph(id="rigs-rates", config={"displaylogo": False})),
+            card(html.H2("Flag and quality-check failure rates"),
+                 dcc.Graph(id="rigs-rates", config={"displaylogo": False})),
         ]),
         dcc.Store(id="rigs-url"),
     ])
 
 
 def register(app, ctx):
-    from ..app import register_url_state
-
     register_url_state(app, NAME, URL_STATE)
 
     @app.callback(Output("rigs-numbers", "children"), Output("rigs-distribution", "figure"),
@@ -118,7 +100,7 @@ def register(app, ctx):
         if not event:
             e = figures.empty_figure("No events with results yet.", meeting=meeting)
             return html.P("No results yet."), e, e
-        stat = queries.statistic(stat_key)
+        stat = statistic(stat_key)
         data = rigs_data(ctx.store, stat_key, event, filters_from(profile, sites_, None, start, end),
                          cache=ctx.drill_cache)
         return (numbers_table(data, stat),

@@ -3,12 +3,15 @@ with its suggested cause (recording / rig / lot / unit), and the recordings that
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
-import pandas as pd
 from dash import Input, Output, dcc, html
 
-from .. import queries, triage
+from analysis.store import queries
+from analysis.triage import NEXT_STEP, actuation_state, suggest_cause
+
+from ..urlstate import register_url_state
+from ..words import describe_flag
 from .common import card, pick, table, view_header
 
 NAME = "today"
@@ -27,20 +30,20 @@ def today_data(store, *, per_rig: int = 10) -> dict:
     quarantine: the latest quarantined recordings; counts: per state."""
     with store.read() as conn:
         rows = queries.latest_per_rig(conn, per_rig=per_rig)
-        fl = queries.flags_for(conn, rows["actuation_id"])
+        fl = queries.flags(conn, actuation_ids=rows["actuation_id"])
         quar = queries.recent_quarantine(conn)
         flagged = rows[rows["actuation_id"].isin(set(fl["actuation_id"]))]
         evidence = queries.triage_evidence(conn, sorted(set(flagged["lot"])), sorted(set(flagged["rig"])))
     rows = rows.copy()
-    rows["state"] = [triage.actuation_state(passed_qc=bool(p), n_model_flags=int(m), n_qc_flags=int(q))
+    rows["state"] = [actuation_state(passed_qc=bool(p), n_model_flags=int(m), n_qc_flags=int(q))
                      for p, m, q in zip(rows["passed_qc"], rows["n_model_flags"], rows["n_qc_flags"])]
     causes = {}
     for aid, g in fl.groupby("actuation_id"):
         r = rows[rows["actuation_id"] == aid].iloc[0]
-        causes[aid] = triage.suggest_cause(g["statistic"].tolist(), lot=r["lot"], rig=r["rig"], evidence=evidence)
+        causes[aid] = suggest_cause(g["statistic"].tolist(), lot=r["lot"], rig=r["rig"], evidence=evidence)
     rows["cause"] = rows["actuation_id"].map(lambda a: causes.get(a, ("", ""))[0])
     fl = fl.merge(rows[["actuation_id", "site", "rig", "lot", "unit", "recorded_at"]], on="actuation_id", how="left")
-    fl["words"] = [triage.describe_flag(s, e, r, v, lim) for s, e, r, v, lim in
+    fl["words"] = [describe_flag(s, e, r, v, lim) for s, e, r, v, lim in
                    zip(fl["statistic"], fl["event"], fl["reason"], fl["value"], fl["limit"])]
     fl["cause"] = fl["actuation_id"].map(lambda a: causes[a][0])
     fl["because"] = fl["actuation_id"].map(lambda a: causes[a][1])
@@ -48,13 +51,6 @@ def today_data(store, *, per_rig: int = 10) -> dict:
     counts["quarantined"] = len(quar)
     return {"rows": rows, "flags": fl, "quarantine": quar, "counts": counts}
 
-
-NEXT_STEP = {
-    "recording": "check the microphone, gain and cabling on the rig, then re-record",
-    "rig": "look at the rig (drive, fixture, microphone position) before the next lot",
-    "lot": "compare the lot with its neighbours on the Lots view and tell the method owner",
-    "unit": "listen to the actuation against the reference and set the unit aside for inspection",
-}
 
 
 def render_today(data: dict) -> html.Div:
@@ -91,7 +87,7 @@ def render_today(data: dict) -> html.Div:
                               ("received_at", "Received (UTC)", str)], id="today-quarantine") if len(quar) else \
         html.P("No recording was quarantined.", id="today-quarantine")
     return html.Div([
-        card(badges, html.P(f"Updated {datetime.now(timezone.utc).strftime('%H:%M:%S')} UTC.", className="muted")),
+        card(badges, html.P(f"Updated {datetime.now(UTC).strftime('%H:%M:%S')} UTC.", className="muted")),
         card(html.H2("Flags"), flags_block),
         card(html.H2("Quarantined recordings"), html.P("These could not be analysed; the reason says why.",
                                                         className="muted"), quar_block),
@@ -113,8 +109,6 @@ def layout(ctx, q: dict):
 
 
 def register(app, ctx):
-    from ..app import register_url_state
-
     register_url_state(app, NAME, URL_STATE)
 
     @app.callback(Output("today-body", "children"), Input("today-interval", "n_intervals"),

@@ -7,9 +7,10 @@ import numpy as np
 from dash import Input, Output, dcc, html
 
 from analysis.errors import AnalysisError
-from analysis.store import StoreError
+from analysis.store import StoreError, queries
 
-from .. import figures, queries
+from .. import figures
+from ..urlstate import register_url_state
 from .common import card, filter_bar, split_list, view_header
 
 NAME = "trajectories"
@@ -41,7 +42,7 @@ def trajectories_data(ctx, profile, event, *, lots_=(), ids=()) -> dict:
         return {"model": None, "trajs": None}
     model_id, model = models[event]
     with ctx.store.read() as conn:
-        trajs = queries.trajectories_for(conn, event, actuation_ids=ids, lots_=lots_, profile=profile)
+        trajs = queries.trajectories(conn, event, actuation_ids=ids, lots_=lots_, profile=profile)
     return {"model": model, "model_id": model_id, "trajs": trajs}
 
 
@@ -63,10 +64,12 @@ def layout(ctx, q: dict):
                 id="trajectories-ids", value=q.get("ids", ""), debounce=True, placeholder="e.g. 12, 40",
                 className="text-input")], className="filter"),
             html.Label([html.Span("Across", className="filter-label"), dcc.Dropdown(
-                id="trajectories-x", options=comps, value=q.get("x", "0") if q.get("x", "0") in [c["value"] for c in comps] else "0",
+                id="trajectories-x", options=comps,
+                value=q.get("x", "0") if q.get("x", "0") in [c["value"] for c in comps] else "0",
                 clearable=False)], className="filter"),
             html.Label([html.Span("Up", className="filter-label"), dcc.Dropdown(
-                id="trajectories-y", options=comps, value=q.get("y", "1") if q.get("y", "1") in [c["value"] for c in comps] else "1",
+                id="trajectories-y", options=comps,
+                value=q.get("y", "1") if q.get("y", "1") in [c["value"] for c in comps] else "1",
                 clearable=False)], className="filter"),
         ])),
         html.P(id="trajectories-note", className="muted"),
@@ -108,8 +111,6 @@ def trajectory_figures(data: dict, *, x: int = 0, y: int = 1, meeting: bool = Fa
 
 
 def register(app, ctx):
-    from ..app import register_url_state
-
     register_url_state(app, NAME, URL_STATE)
 
     @app.callback(Output("trajectories-time", "figure"), Output("trajectories-plane", "figure"),

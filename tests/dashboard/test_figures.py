@@ -7,10 +7,10 @@ import pandas as pd
 import plotly.graph_objects as go
 import pytest
 
+from analysis.monitor import lot_chart
+from analysis.store import statistic
 from dashboard import figures
-from dashboard.charting import lot_chart
 from dashboard.drill import spectrogram_db, waveform_envelope
-from dashboard.queries import statistic
 
 
 def _chart():

@@ -3,17 +3,13 @@ figure functions as its callback calls them."""
 
 from __future__ import annotations
 
-import math
-
-import numpy as np
-import pandas as pd
 import pytest
-from dash import dcc
 
-from dashboard import create_app, queries
-from dashboard.app import CAUTIONS, parse_query
-from dashboard.views import VIEWS, view_for_path
-from dashboard.views import actuation, lots, references, rigs, today, trajectories
+from analysis.cautions import CAUTIONS
+from analysis.store import Filters, queries, statistic
+from dashboard import create_app
+from dashboard.urlstate import parse_query
+from dashboard.views import VIEWS, actuation, lots, references, rigs, today, trajectories, view_for_path
 
 
 def _find(component, cid):
@@ -99,7 +95,7 @@ def test_url_state_names_cover_every_control():
 
 
 def test_lots_chart_data(ctx):
-    chart, cloud, stat = lots.lots_chart_data(ctx.store, "event_spe_ratio", "dose_release", queries.Filters())
+    chart, cloud, stat = lots.lots_chart_data(ctx.store, "event_spe_ratio", "dose_release", Filters())
     assert len(chart.points) == 24 and chart.log
     assert cloud["flagged"].any()
     text = lots.chart_summary(chart, stat)
@@ -137,31 +133,12 @@ def test_today_shows_quarantined_recordings(store_copy, tmp_path):
     assert q["reason"].startswith("not a readable") and q["rig"] == "NF-R1"
 
 
-def test_rigs_precision_matches_one_way_anova_from_raw_values():
-    rng = np.random.default_rng(5)
-    groups = [rng.normal(m, 1.0, n) for m, n in ((0.0, 8), (0.7, 12), (-0.3, 5), (0.2, 9))]
-    summary = pd.DataFrame({"n": [g.size for g in groups], "mean": [g.mean() for g in groups],
-                            "sd": [g.std(ddof=1) for g in groups]})
-    got = rigs.precision_summary(summary)
-    # Reference: the random-effects one-way ANOVA from the raw values (ISO 5725-2 §7.4; Montgomery, Design and
-    # Analysis of Experiments, ch. 13): MS_within, MS_between, n0 = (N - Σn²/N)/(p - 1).
-    allv = np.concatenate(groups)
-    ss_w = sum(((g - g.mean()) ** 2).sum() for g in groups)
-    ss_b = sum(g.size * (g.mean() - allv.mean()) ** 2 for g in groups)
-    p, N = len(groups), allv.size
-    ms_w, ms_b = ss_w / (N - p), ss_b / (p - 1)
-    n0 = (N - sum(g.size**2 for g in groups) / N) / (p - 1)
-    assert got["s_r"] == pytest.approx(math.sqrt(ms_w))
-    assert got["s_L"] == pytest.approx(math.sqrt(max(0.0, (ms_b - ms_w) / n0)))
-    assert got["s_R"] ** 2 == pytest.approx(got["s_r"] ** 2 + got["s_L"] ** 2)
-
-
 def test_rigs_data_and_numbers(ctx):
-    data = rigs.rigs_data(ctx.store, "event_spe_ratio", "dose_release", queries.Filters())
+    data = rigs.rigs_data(ctx.store, "event_spe_ratio", "dose_release", Filters())
     s = data["summary"]
     assert len(s) == 4 and s["offset_sd"].notna().all()
     assert data["reference"]["lots"] == ["L2601", "L2602", "L2603"]
-    block = rigs.numbers_table(data, queries.statistic("event_spe_ratio"))
+    block = rigs.numbers_table(data, statistic("event_spe_ratio"))
     assert "ISO 5725-2" in _find(block, "rigs-precision").children
 
 
@@ -177,7 +154,7 @@ def test_trajectories_data_and_figures(ctx):
 
 def test_actuation_view_figures(ctx):
     with ctx.store.read() as conn:
-        fl = queries.flags_for(conn, range(1, 121))
+        fl = queries.flags(conn, actuation_ids=range(1, 121))
     aid = int(fl.loc[fl["statistic"] == "spe", "actuation_id"].iloc[0])
     f = actuation.actuation_figures(ctx, aid, "dose_release")
     assert f["slice_options"][0]["value"] == "worst"
@@ -220,7 +197,7 @@ def test_cached_aggregates_follow_the_store(store_copy, tmp_path):
 
     app = create_app(store_copy, cache_dir=tmp_path / "c")
     ctx = app.harken
-    args = (ctx.store, "t2_ratio", "metering_click", queries.Filters())
+    args = (ctx.store, "t2_ratio", "metering_click", Filters())
     first, _, _ = lots.lots_chart_data(*args, cache=ctx.drill_cache)
     again, _, _ = lots.lots_chart_data(*args, cache=ctx.drill_cache)
     assert again.points["n_flagged"].sum() == first.points["n_flagged"].sum()
@@ -239,7 +216,8 @@ def test_dashboard_imports_no_worker_and_builds_no_app():
     import sys
 
     code = ("import sys, dashboard, dashboard.views;"
-            "print('analysis.worker' in sys.modules, any(type(v).__name__ == 'Dash' for v in vars(dashboard).values()))")
+            "print('analysis.worker' in sys.modules, "
+            "any(type(v).__name__ == 'Dash' for v in vars(dashboard).values()))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.split()
     assert out == ["False", "False"]
 
@@ -255,5 +233,6 @@ def test_an_unreadable_model_degrades_to_a_note(ctx):
     ctx.extra.pop("models", None)
     f = actuation.actuation_figures(ctx, 104, "dose_release")
     assert "cannot be read" in f["note"] and f["waveform"].data
-    t = trajectories.trajectory_figures(trajectories.trajectories_data(ctx, "demo-dpi", "dose_release", lots_=["L2606"]))
+    t = trajectories.trajectory_figures(trajectories.trajectories_data(ctx, "demo-dpi", "dose_release",
+                                                                       lots_=["L2606"]))
     assert "cannot be read" in t["note"]

@@ -73,7 +73,7 @@ def test_t2_limit_new_matches_reference_values_and_f_quantile():
 
 
 def test_t2_limit_reference_matches_reference_values_and_beta_quantile():
-    # REFERENCES.md: Tracy, Young & Mason 1992 formula, values computed with scipy.
+    # REFERENCES.md: Tracy et al. 1992 formula, values computed with scipy.
     assert t2_limit_reference(30, 3, 0.05) == pytest.approx(7.1641, abs=1e-4)
     assert t2_limit_reference(30, 3, 0.01) == pytest.approx(9.7704, abs=1e-4)
     n, a = 57, 4

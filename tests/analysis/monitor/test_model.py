@@ -1,6 +1,4 @@
-import json
 import math
-import zipfile
 
 import numpy as np
 import pytest
@@ -8,7 +6,6 @@ from sklearn.decomposition import PCA
 
 from analysis.errors import ModelError, ParameterError
 from analysis.monitor import (
-    FORMAT_NAME,
     ReferenceModel,
     band_contributions,
     spe_limit_box,
@@ -105,7 +102,7 @@ def test_limits_and_envelope_follow_their_definitions(reference):
     x, _, m = reference
     a = m.n_components_
     assert m.t2_limit_ == t2_limit_new(m.n_reference_, a, 0.01)  # NIST e-Handbook 6.5.4.4
-    assert m.t2_limit_reference_ == t2_limit_reference(m.n_reference_, a, 0.01)  # Tracy, Young & Mason 1992
+    assert m.t2_limit_reference_ == t2_limit_reference(m.n_reference_, a, 0.01)  # Tracy et al. 1992
     assert m.spe_limit_ == spe_limit_jackson_mudholkar(m.residual_eigenvalues_, 0.01)  # Jackson & Mudholkar 1979
     r = m.score(x)
     assert m.spe_limit_box_ == pytest.approx(
@@ -137,7 +134,7 @@ def test_cross_validation_finds_the_latent_dimension():
 
 
 def test_contributions_reference_example():
-    # REFERENCES.md [C] (Westerhuis, Gurden & Smilde 2000; Alcala & Qin 2009 formulas).
+    # REFERENCES.md [C] (Westerhuis et al. 2000; Alcala & Qin 2009 formulas).
     p = np.array([[0.5, 0.5], [0.5, 0.5], [0.5, -0.5], [0.5, -0.5]])
     c = band_contributions([1.0, 2.0, 0.0, 1.0], p, [4.0, 1.0])
     np.testing.assert_allclose(c.t2, [0.75, 1.5, 0.0, -0.25])
@@ -269,3 +266,21 @@ def test_documents_round_trip_without_files(reference):
     assert again.metadata_ == {"event": "e"}
     with pytest.raises(ModelError, match=r"row 7: arrays do not match the checksum"):
         ReferenceModel.from_documents(text, blob[:-1] + b"x", source="row 7")
+
+
+@pytest.mark.parametrize("scaling, centring", [("unit", "slice"), ("pareto", "slice"), ("unit", "global"),
+                                               ("centre", "slice")])
+def test_band_envelope_is_the_reference_mean_and_sd_per_slice_and_band(scaling, centring):
+    x, lots = simulate(np.random.default_rng(11), 4, 20)
+    m = ReferenceModel(n_components=2, scaling=scaling, centring=centring).fit(x)
+    mean, spread = m.band_envelope()
+    assert mean.shape == (x.shape[1], x.shape[2])
+    # the reference's own sample mean and SD (n - 1), per slice or over all slices (numpy, independent of the model)
+    pooled = x.reshape(-1, x.shape[2])
+    want_mean = x.mean(axis=0) if centring == "slice" else np.broadcast_to(pooled.mean(axis=0), mean.shape)
+    want_sd = x.std(axis=0, ddof=1) if centring == "slice" else np.broadcast_to(pooled.std(axis=0, ddof=1), mean.shape)
+    np.testing.assert_allclose(mean, want_mean, rtol=1e-12)
+    if scaling == "centre":
+        assert spread is None  # plain centring keeps no spread
+    else:
+        np.testing.assert_allclose(spread, want_sd, rtol=1e-10)

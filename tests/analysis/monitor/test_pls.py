@@ -36,8 +36,8 @@ def test_opls_predicts_like_pls_with_same_total_components(a):
     # Trygg & Wold 2002: for one y, OPLS with 1 predictive + (A-1) orthogonal components gives the same
     # predictions as PLS with A components.
     x, y, new = data(2)
-    np.testing.assert_allclose(OPLS(n_orthogonal=a - 1).fit(x, y).predict(new), PLS1(n_components=a).fit(x, y).predict(new),
-                               rtol=1e-9, atol=1e-8)
+    np.testing.assert_allclose(OPLS(n_orthogonal=a - 1).fit(x, y).predict(new),
+                               PLS1(n_components=a).fit(x, y).predict(new), rtol=1e-9, atol=1e-8)
 
 
 def test_opls_orthogonal_scores_are_uncorrelated_with_y():

@@ -13,7 +13,7 @@ def test_periodic_hann_gains():
     w = window_values("hann", N)
     # Harris 1978 (Proc. IEEE 66(1)), DFT-even Hann: w[n] = 0.5 - 0.5·cos(2πn/N).
     np.testing.assert_allclose(w, 0.5 - 0.5 * np.cos(2 * np.pi * np.arange(N) / N), atol=1e-15)
-    # Harris 1978; Heinzel, Rüdiger & Schilling 2002: coherent gain 0.5, NENBW 1.5 bins.
+    # Harris 1978; Heinzel et al. 2002: coherent gain 0.5, NENBW 1.5 bins.
     assert w.sum() / N == pytest.approx(0.5, abs=1e-12)
     assert N * np.sum(w**2) / w.sum() ** 2 == pytest.approx(1.5, abs=1e-12)
 

@@ -1,4 +1,4 @@
-"""Lot-chart limits and run rules on hand-made points."""
+"""The lot-by-lot chart's limits and run rules (analysis.monitor.lotchart) on hand-made points."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from dashboard.charting import lot_chart
+from analysis.monitor import lot_chart
 
 
 def _points(values, rigs=None, lots=None):
