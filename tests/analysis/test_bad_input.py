@@ -8,10 +8,9 @@ import sys
 
 import numpy as np
 import pytest
-import soundfile as sf
 
 from analysis.cli import main
-from tests.conftest import FS, sidecar_dict, synth_actuation, write_recording
+from tests.conftest import sidecar_dict, synth_actuation, write_recording
 
 
 def run_cli(capsys, *args):
@@ -109,7 +108,8 @@ def test_missing_sidecar(tmp_path, capsys):
     path = write_recording(tmp_path, "lonely", sidecar=False)
     code, _, err = run_cli(capsys, "analyse", str(path))
     assert code != 0
-    assert err.strip() == f"harken: {tmp_path / 'lonely.json'}: sidecar metadata file is missing (expected beside the recording)"
+    assert err.strip() == (f"harken: {tmp_path / 'lonely.json'}: "
+                           "sidecar metadata file is missing (expected beside the recording)")
 
 
 def test_malformed_sidecar(tmp_path, capsys):
@@ -124,7 +124,8 @@ def test_profile_with_an_unknown_key(tmp_path, capsys):
     from analysis.profiles import shipped_profiles_dir
 
     prof = tmp_path / "odd.toml"
-    prof.write_text((shipped_profiles_dir() / "demo-dpi.toml").read_text().replace("[quality]", "[quality]\nloudness = 3"))
+    prof.write_text((shipped_profiles_dir() / "demo-dpi.toml").read_text()
+                    .replace("[quality]", "[quality]\nloudness = 3"))
     path = write_recording(tmp_path, "rec")
     code, _, err = run_cli(capsys, "analyse", str(path), "--profile", str(prof))
     assert code != 0

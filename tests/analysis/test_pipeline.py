@@ -99,6 +99,7 @@ def test_calibration_makes_levels_read_re_20_micropascal(recording, tmp_path, ca
     plain = json.loads(capsys.readouterr().out)
     assert main(["analyse", str(recording), "--json", "--calibration", str(cal)]) == 0
     calibrated = json.loads(capsys.readouterr().out)
-    shift = calibrated["features"]["dose_release"]["band_energy_db"] - plain["features"]["dose_release"]["band_energy_db"]
+    shift = (calibrated["features"]["dose_release"]["band_energy_db"]
+             - plain["features"]["dose_release"]["band_energy_db"])
     # RMS of the tone is 0.1/sqrt(2) FS, so 1 FS RMS = 94 - 20*log10(0.0707) = 117.0 dB SPL
     assert shift == pytest.approx(94.0 - 20 * np.log10(0.1 / np.sqrt(2)), abs=0.05)

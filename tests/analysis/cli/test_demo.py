@@ -1,11 +1,12 @@
-"""`harken demo` end to end on the small scenario, and the lot-by-lot summary on constructed tables."""
+"""`harken demo` end to end on the small scenario, and the lot-by-lot summary on constructed points."""
 
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
 
-from analysis.demo_run import lot_chart_summary, run_demo
+from analysis.cli.demo import lot_chart_lines, run_demo
+from analysis.monitor import lot_chart
 
 
 def test_demo_runs_end_to_end_and_flags_every_recording_fault(tmp_path):
@@ -38,33 +39,30 @@ def test_demo_runs_end_to_end_and_flags_every_recording_fault(tmp_path):
     assert any(line.startswith("ingested 120 recordings") for line in again)  # a fresh store each run
 
 
-def _table(rng, lots, rigs, shift_lot=None, shift_rig=None, per=8):
+def _chart(rng, lots, rigs, shift_lot=None, shift_rig=None, per=8):
+    """The lot-by-lot chart of constructed points: per (lot, rig) the geometric mean of ``per`` log-normal
+    residual ratios, as the store's lot_points gives them."""
     rows = []
-    t = 0
+    t = pd.Timestamp("2026-01-01")
     for lot in lots:
         for rig in rigs:
-            for _ in range(per):
-                v = rng.normal(0.0, 0.3)
-                if lot == shift_lot or (rig == shift_rig and lot >= "L05"):
-                    v += 1.0
-                rows.append({"rig": rig, "lot": lot, "reference": lot <= "L03", "qc_failed": "",
-                             "recorded_at": f"2026-01-01T00:{t // 60:02d}:{t % 60:02d}+00:00",
-                             "ev.event_spe_ratio": float(np.exp(v))})
-                t += 1
-    return pd.DataFrame(rows)
+            v = rng.normal(0.0, 0.3, per)
+            if lot == shift_lot or (rig == shift_rig and lot >= "L05"):
+                v += 1.0
+            rows.append({"lot": lot, "rig": rig, "value": float(np.exp(v.mean())), "n": per, "first": t})
+            t += pd.Timedelta(hours=1)
+    return lot_chart(pd.DataFrame(rows), reference_lots=[lot for lot in lots if lot <= "L03"], log=True)
 
 
 def test_lot_summary_names_a_lot_that_moved_on_every_rig():
     lots = [f"L{i:02d}" for i in range(1, 8)]
-    table = _table(np.random.default_rng(3), lots, ["R1", "R2", "R3", "R4"], shift_lot="L06")
-    lines = lot_chart_summary(table, "ev")
+    lines = lot_chart_lines(_chart(np.random.default_rng(3), lots, ["R1", "R2", "R3", "R4"], shift_lot="L06"), "ev")
     assert any(line.startswith("  lot L06: signals on 4 of 4 rigs -> suggests the lot") for line in lines), lines
     assert not any("suggests the rig" in line for line in lines)
 
 
 def test_lot_summary_names_a_rig_that_moved_on_every_new_lot():
     lots = [f"L{i:02d}" for i in range(1, 8)]
-    table = _table(np.random.default_rng(4), lots, ["R1", "R2", "R3", "R4"], shift_rig="R3")
-    lines = lot_chart_summary(table, "ev")
+    lines = lot_chart_lines(_chart(np.random.default_rng(4), lots, ["R1", "R2", "R3", "R4"], shift_rig="R3"), "ev")
     assert any(line.startswith("  rig R3: signals on lots L05, L06, L07 -> suggests the rig") for line in lines), lines
     assert not any("suggests the lot" in line for line in lines)

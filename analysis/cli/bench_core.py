@@ -1,8 +1,5 @@
-"""`harken bench ...`: speed measured as ratios against a floor (or a peer) timed in the same run.
-
-Seconds on these machines are noisy; a ratio of two things timed side by side, interleaved, is not. Each bench
-prints its details first and its ratios last, one per line, as ``name=<value>``.
-"""
+"""`harken bench analyse` and `harken bench score`: the analysis of recordings against a decode + FFT floor and a
+plain peer, and scoring against the bare matrix products, each timed interleaved in the same run."""
 
 from __future__ import annotations
 
@@ -13,21 +10,11 @@ from pathlib import Path
 import numpy as np
 import scipy.signal
 
-__all__ = ["run", "bench_analyse", "bench_score"]
+__all__ = ["bench_analyse", "bench_score", "interleaved_best"]
 
 
 
-def run(args) -> int:
-    if args.bench_command == "analyse":
-        bench_analyse(n_files=args.files, repeat=args.repeat)
-        return 0
-    if args.bench_command == "score":
-        bench_score(n_actuations=args.actuations, n_slices=args.slices, n_bands=args.bands, repeat=args.repeat)
-        return 0
-    raise SystemExit(f"unknown bench {args.bench_command!r}")
-
-
-def _interleaved_best(fns, repeat: int) -> list[float]:
+def interleaved_best(fns, repeat: int) -> list[float]:
     """Best-of-``repeat`` seconds of each function, run in turn each round: a load spike hits them all alike."""
     best = [float("inf")] * len(fns)
     for _ in range(max(1, repeat)):
@@ -46,7 +33,7 @@ def _floor_one(path: Path, frames_plan, windows) -> None:
     in float32 like the analysis, framed by a strided view, windows computed once outside the timing."""
     from numpy.lib.stride_tricks import sliding_window_view
 
-    from .io import read_audio
+    from ..io import read_audio
 
     x = read_audio(path).samples[:, 0]
     for n_window, starts in frames_plan:
@@ -57,7 +44,7 @@ def _floor_one(path: Path, frames_plan, windows) -> None:
 
 def _peer_one(path: Path, event_plans) -> None:
     """A plain approach: scipy.signal.spectrogram of the whole file per event grid, then numpy band averaging."""
-    from .io import read_audio
+    from ..io import read_audio
 
     audio = read_audio(path)
     x = audio.samples[:, 0].astype(np.float64)
@@ -75,11 +62,11 @@ def _peer_one(path: Path, event_plans) -> None:
 
 def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
     """Analyse a generated batch; print time per recording and the ratios to the floor and to the peer."""
-    from .demo import generate
-    from .pipeline import analyse_file, band_layout
-    from .profiles import load_profile
-    from .signal.events import ONSET_FRAME_S, ONSET_HOP_S
-    from .signal.spectra import slice_grid
+    from ..demo import generate
+    from ..pipeline import analyse_file, band_layout
+    from ..profiles import load_profile
+    from ..signal.events import ONSET_FRAME_S, ONSET_HOP_S
+    from ..signal.spectra import slice_grid
 
     with tempfile.TemporaryDirectory(prefix="harken-bench-") as tmp:
         generate(tmp, scenario="small", seed=1234)
@@ -126,7 +113,7 @@ def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
             for path, pplan in zip(files, peer_plans):
                 _peer_one(path, pplan)
 
-        t_ours, t_floor, t_peer = _interleaved_best([ours, floor, peer], repeat)
+        t_ours, t_floor, t_peer = interleaved_best([ours, floor, peer], repeat)
 
     n = len(files)
     result = {
@@ -140,7 +127,8 @@ def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
     out(f"recordings analysed: {n} (demo scenario 'small', best of {repeat})")
     out(f"analysis: {result['ms_per_recording']:.2f} ms per recording "
         "(decode, quality checks, events, spectra, band features)")
-    out(f"floor:    {result['floor_ms_per_recording']:.2f} ms per recording (decode + bare numpy FFTs of the same frames)")
+    out(f"floor:    {result['floor_ms_per_recording']:.2f} ms per recording "
+        "(decode + bare numpy FFTs of the same frames)")
     out(f"peer:     {result['peer_ms_per_recording']:.2f} ms per recording "
         "(decode + scipy.signal.spectrogram of the whole file per event grid + numpy band averaging)")
     out(f"ratio_to_floor={result['ratio_to_floor']:.3f}")
@@ -154,7 +142,7 @@ def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
 def bench_score(*, n_actuations: int = 10_000, n_slices: int = 40, n_bands: int = 30, repeat: int = 5,
                 out=print) -> dict:
     """Score n_actuations x n_slices x n_bands against a fitted model vs the bare matrix products of that size."""
-    from .monitor import ReferenceModel
+    from ..monitor import ReferenceModel
 
     rng = np.random.default_rng(7)
     n_ref = 200
@@ -179,7 +167,7 @@ def bench_score(*, n_actuations: int = 10_000, n_slices: int = 40, n_bands: int 
     def ours():
         model.score(new)
 
-    t_ours, t_floor = _interleaved_best([ours, floor], repeat)
+    t_ours, t_floor = interleaved_best([ours, floor], repeat)
     result = {
         "rows": flat.shape[0],
         "score_s": t_ours,

@@ -7,7 +7,7 @@ import re
 
 import pytest
 
-from analysis.bench import bench_analyse, bench_score
+from analysis.cli.bench_core import bench_analyse, bench_score
 
 
 def _ratio(line: str, name: str) -> float:

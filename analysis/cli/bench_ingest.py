@@ -11,24 +11,19 @@ import tempfile
 import time
 from pathlib import Path
 
-__all__ = ["run", "bench_ingest"]
-
-
-def run(args) -> int:
-    bench_ingest(scenario=args.scenario, jobs=args.jobs, store_url=args.store, inbox=args.inbox)
-    return 0
+__all__ = ["bench_ingest"]
 
 
 def bench_ingest(*, scenario: str = "small", jobs: int | None = None, store_url: str | None = None,
                  inbox: str | Path | None = None, echo=print):
     """Ingest time vs bare analysis time of a generated scenario (or of the recordings already in ``inbox``,
     which are left in place). Returns (recordings, analysis s, ingest s)."""
-    from . import store as _store  # noqa: F401  (imported before timing: a one-off cost, not per recording)
-    from .demo import generate
-    from .scoring import analyse_many, find_recordings
-    from .worker import _jobs, ingest_paths
+    from .. import store as _store  # noqa: F401  (imported before timing: a one-off cost, not per recording)
+    from ..demo import generate
+    from ..scoring import analyse_many, find_recordings
+    from ..worker import ingest_paths, jobs_or_cores
 
-    jobs = _jobs(jobs)
+    jobs = jobs_or_cores(jobs)
     with tempfile.TemporaryDirectory(prefix="harken-bench-") as tmp:
         if inbox is None:
             inbox = Path(tmp) / "inbox"

@@ -1,8 +1,7 @@
-"""`harken demo`: generate the demo scenario, fit the reference models, analyse and score every recording.
-
-Until the store and dashboard land this is the main job on the embedded default: it prints what the monitoring
-found per condition, rig and lot, and compares it with the generator's ground truth.
-"""
+"""`harken demo` (what `make demo` runs): generate the demo scenario, ingest it with the worker, build the
+reference models, and summarise what the store holds against the generator's ground truth: flags per condition,
+rig and lot, the lot-by-lot charts with their suggested causes, the units beyond their limit, and a PLS1
+calibration of the carrier size from the release sound."""
 
 from __future__ import annotations
 
@@ -14,11 +13,21 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import AnalysisError
-from .io import read_sidecar
-from .triage import lot_rigs_signalling, rig_lots_signalling
+from ..errors import AnalysisError
+from ..io import read_sidecar
+from ..monitor import LotChart, lot_chart
+from ..triage import cell_causes
 
-__all__ = ["run", "run_demo"]
+__all__ = ["register", "run", "run_demo", "lot_chart_lines", "unit_summary", "carrier_calibration"]
+
+
+def register(sub) -> None:
+    p = sub.add_parser("demo", help="generate the demo scenario, fit the reference, analyse and summarise")
+    p.add_argument("--out", default="demo_out", metavar="DIR")
+    p.add_argument("--scenario", default="default")
+    p.add_argument("--seed", type=int, default=None)
+    p.add_argument("--jobs", type=int, default=None)
+    p.set_defaults(func=run)
 
 
 def run(args) -> int:
@@ -39,9 +48,10 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
     reference lots (which scores every stored actuation), and summarise what the store holds against the
     generator's ground truth.
     """
-    from .demo import generate
-    from .store import Store, build_reference
-    from .worker import ingest_paths
+    from ..demo import generate
+    from ..references import build_reference
+    from ..store import Filters, Store, queries
+    from ..worker import ingest_paths
 
     out = Path(out)
     inbox = out / "inbox"
@@ -87,6 +97,12 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
         exported = store.export_actuations()
         levels = store.band_levels(profiles[0], "dose_release")
         event_names = list(dict.fromkeys(store.models()["event"]))
+        charts = {}
+        with store.read() as conn:  # the Lots view's chart: the store's lot points and the one lot-chart rule
+            for event in event_names:
+                points = queries.lot_points(conn, "event_spe_ratio", event, Filters(profile=profiles[0]))
+                charts[event] = lot_chart(points, reference_lots=queries.reference_lots(conn, profiles[0], event),
+                                          log=True, rules="we")
 
     # The store keeps each file's name relative to the folder it was ingested from: the ground truth's `file`.
     table = exported.merge(truth[["file", "condition", "reference"]], on="file", how="inner", validate="one_to_one")
@@ -116,7 +132,7 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
     echo(pivot.astype(int).to_string())
     echo("")
     for event in event_names:
-        for line in lot_chart_summary(table, event):
+        for line in lot_chart_lines(charts[event], event):
             echo(line)
     echo("")
     for line in unit_summary(table, event_names):
@@ -134,61 +150,31 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
     return table
 
 
-def lot_chart_summary(table: pd.DataFrame, event: str) -> list[str]:
-    """Lot-by-lot individuals chart of one event's residual, one point per lot on each rig, and what it suggests.
+def lot_chart_lines(chart: LotChart, event: str) -> list[str]:
+    """The demo's words for one event's lot-by-lot chart of the event residual and what its signals suggest.
 
-    The point is the mean over a lot's actuations on one rig of log(event residual ratio) (the residual of the
-    event's mean spectrum over its reference median): a lasting change that single actuations cannot show moves
-    the mean of a lot. Phase I limits come from the reference lots' points (NIST e-Handbook 6.3.2.2: centre
-    ± 3·MR̄/d2, moving ranges within each rig); new points are checked against them and by the Western
-    Electric rules, rig by rig in time order.
-    Which lot or rig is suggested follows analysis.triage (the rule the dashboard's flags use too).
+    Each point is the mean log event residual (the residual of the event's mean spectrum over its reference
+    median) of a lot's actuations on one rig: a lasting change that single actuations cannot show moves the mean
+    of a lot. Limits and run rules are analysis.monitor.lot_chart's (the Lots view's); the causes are
+    analysis.triage.cell_causes' (lot, then rig, then the cell's units).
     """
-    from .monitor import WESTERN_ELECTRIC, check_rules, fit_individuals_limits
-
-    col = f"{event}.event_spe_ratio"
-    if col not in table:
-        return []
-    data = table[table["qc_failed"].fillna("").eq("") & table[col].notna() & (table[col] > 0)].copy()
-    data["log_ratio"] = np.log(data[col].astype(float))
-    points = (data.groupby(["rig", "lot"], sort=False)
-              .agg(value=("log_ratio", "mean"), n=("log_ratio", "size"), reference=("reference", "all"),
-                   first=("recorded_at", "min"))
-              .reset_index().sort_values("first"))
-    ref = points[points["reference"]]
-    if len(ref) < 3:
+    pts = chart.points
+    ref = pts[pts["reference"] & np.isfinite(pts["y"].astype(float))] if len(pts) else pts
+    if not np.isfinite(chart.ucl) or not len(ref):
         return [f"{event}: too few reference points ({len(ref)}) for lot-by-lot limits"]
-    # time order rig by rig: a rig's offset is not variation between successive lots (same as the Lots view)
-    ref = ref.sort_values(["rig", "first"])
-    limits = fit_individuals_limits(ref["value"].to_numpy(), groups=ref["rig"].to_numpy())
-    points["beyond"] = points["value"] > limits.ucl
-    points["rules"] = ""
-    for rig in points["rig"].unique():
-        on_rig = points.index[points["rig"] == rig]
-        vals = points.loc[on_rig, "value"].to_numpy()
-        for v in check_rules(vals, centre=limits.centre, sigma=limits.sigma, rules=WESTERN_ELECTRIC):
-            at = on_rig[v.index]
-            points.loc[at, "rules"] = ",".join(filter(None, [points.loc[at, "rules"], v.rule]))
-    points["signal"] = points["beyond"] | points["rules"].ne("")
-    new = points[~points["reference"]]
-    lines = [f"lot-by-lot chart, {event} (mean log event residual per lot and rig; UCL {limits.ucl:.2f} from "
+    lines = [f"lot-by-lot chart, {event} (mean log event residual per lot and rig; UCL {chart.ucl:.2f} from "
              f"{len(ref)} reference points; Western Electric rules per rig):"]
-    explained = set()
-    for lot, grp in new.groupby("lot", sort=False):
-        hit = lot_rigs_signalling(new, lot)
-        if hit:
-            lines.append(f"  lot {lot}: signals on {len(hit)} of {len(grp)} rigs -> suggests the lot")
-            explained |= {(r, lot) for r in hit}
-    for rig in new["rig"].unique():
-        unexplained = new[(new["rig"] == rig) & ~new["lot"].map(lambda lot, r=rig: (r, lot) in explained)]
-        hit = rig_lots_signalling(unexplained, rig)
-        if hit:
-            lines.append(f"  rig {rig}: signals on lots {', '.join(hit)} -> suggests the rig")
-            explained |= {(rig, lot) for lot in hit}
-    for row in new[new["signal"]].itertuples():
-        if (row.rig, row.lot) not in explained:
-            why = "beyond the limit" if row.beyond else f"run rule {row.rules}"
-            lines.append(f"  rig {row.rig}, lot {row.lot}: {why} -> look at its units")
+    new = pts[~pts["reference"]]
+    for c in cell_causes(new):
+        if c.cause == "lot":
+            lines.append(f"  lot {c.lot}: signals on {len(c.cells)} of {(new['lot'] == c.lot).sum()} rigs "
+                         "-> suggests the lot")
+        elif c.cause == "rig":
+            lines.append(f"  rig {c.rig}: signals on lots {', '.join(lot for lot, _ in c.cells)} -> suggests the rig")
+        else:
+            row = new[(new["lot"] == c.lot) & (new["rig"] == c.rig)].iloc[0]
+            why = "beyond the limit" if row["beyond"] else f"run rule {row['rules']}"
+            lines.append(f"  rig {c.rig}, lot {c.lot}: {why} -> look at its units")
     if len(lines) == 1:
         lines.append("  no lot or rig beyond the limits")
     return lines
@@ -212,7 +198,7 @@ def unit_summary(table: pd.DataFrame, events) -> list[str]:
     A damaged unit changes every one of its actuations a little; the mean over its actuations shows what single
     actuations hide. Limits: centre ± 3·MR̄/d2 of the reference units' points (NIST e-Handbook 6.3.2.2).
     """
-    from .monitor import fit_individuals_limits
+    from ..monitor import fit_individuals_limits
 
     lines = ["units beyond their limit (mean log event residual per unit; limits from the reference units):"]
     caught: dict[str, set] = {}
@@ -232,7 +218,7 @@ def unit_summary(table: pd.DataFrame, events) -> list[str]:
         for row in hit.itertuples():
             caught.setdefault(row.condition, set()).add(row.unit)
         if len(hit):
-            lines.append(f"  {event}: " + ", ".join(f"{u} ({r}, {l})" for u, r, l in
+            lines.append(f"  {event}: " + ", ".join(f"{u} ({r}, {lot})" for u, r, lot in
                                                   zip(hit["unit"], hit["rig"], hit["lot"])))
     lines.append("  units caught by condition (ground truth; a unit is labelled by its actuations' conditions): " +
                  ", ".join(f"{c} {len(caught.get(c, ()))} of {n}" for c, n in sorted(totals.items())))
@@ -249,7 +235,7 @@ def carrier_calibration(levels: pd.DataFrame, truth: pd.DataFrame, *, event: str
     ``predictions`` (a table: file, <event>.predicted_carrier_d50_um), ``rmsecv``, ``n_components`` and
     ``by_lot`` (lot, mean held-out prediction, measured size).
     """
-    from .monitor import PLS1, cross_validate
+    from ..monitor import PLS1, cross_validate
 
     if "carrier_d50_um" not in truth or levels is None or not len(levels):
         return None
