@@ -25,8 +25,10 @@ demo: $(STAMP)
 	$(BIN)/harken demo --out $(DEMO_DIR)
 	$(BIN)/harken serve --store $(DEMO_DIR)/harken.db --host 127.0.0.1 --port 8050
 
-# pytest exits 5 when it collected no test: that is a failure here, not a pass.
+# The linter first (configured in pyproject.toml); then pytest, which exits 5 when it collected no test: that is
+# a failure here, not a pass.
 test: $(STAMP)
+	$(BIN)/ruff check .
 	@$(BIN)/python -m pytest; rc=$$?; \
 	if [ $$rc -eq 5 ]; then echo "make test: pytest collected no tests - failing"; exit 1; fi; \
 	exit $$rc

@@ -8,9 +8,9 @@ device profile, then calls ``analyse_signals``.
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Iterable
 
 import numpy as np
 
@@ -79,8 +79,8 @@ class RecordingResult:
                 "metadata": self.sidecar.to_json() if self.sidecar is not None else None,
             },
             "qc": [
-                {"check": r.check, "value": json_number(r.value), "limit": json_number(r.limit), "passed": bool(r.passed),
-                 "detail": r.detail}
+                {"check": r.check, "value": json_number(r.value), "limit": json_number(r.limit),
+                 "passed": bool(r.passed), "detail": r.detail}
                 for r in self.qc
             ],
             "events": [

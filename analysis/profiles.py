@@ -9,9 +9,10 @@ from __future__ import annotations
 
 import math
 import tomllib
+from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
 
 from .errors import ProfileError
 from .signal.events import DETECTORS
@@ -287,7 +288,7 @@ def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
     min_duration = c.number(audio, "min_duration_s", "audio.min_duration_s", 0.0, minimum=0.0)
     raw_channels = c.table(audio, "channels", "audio.channels", required=False) or {"mic": 0}
     channels: dict[str, int] = {}
-    for role, index in raw_channels.items():
+    for role, _index in raw_channels.items():
         if role not in ("mic", "marker"):
             c.fail(f"audio.channels.{role}", "unknown channel role (allowed: mic, marker)")
         channels[role] = c.integer(raw_channels, role, f"audio.channels.{role}", minimum=0)
@@ -298,7 +299,8 @@ def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
 
     bands = _bands(c, c.table(data, "bands", "bands"), "bands.", None)
     if bands.fmax_hz > sr_max / 2:
-        c.fail("bands.fmax_hz", f"{bands.fmax_hz:g} Hz is above the Nyquist frequency of sample_rate_max_hz ({sr_max / 2:g} Hz)")
+        c.fail("bands.fmax_hz",
+               f"{bands.fmax_hz:g} Hz is above the Nyquist frequency of sample_rate_max_hz ({sr_max / 2:g} Hz)")
 
     q = c.table(data, "quality", "quality", required=False)
     qd = QualityLimits()
@@ -307,12 +309,14 @@ def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
     quality = QualityLimits(
         clip_level=c.number(q, "clip_level", "quality.clip_level", qd.clip_level, positive=True),
         clip_min_run=c.integer(q, "clip_min_run", "quality.clip_min_run", qd.clip_min_run, minimum=1),
-        max_clipped_fraction=c.number(q, "max_clipped_fraction", "quality.max_clipped_fraction", qd.max_clipped_fraction, minimum=0.0),
+        max_clipped_fraction=c.number(q, "max_clipped_fraction", "quality.max_clipped_fraction",
+                                      qd.max_clipped_fraction, minimum=0.0),
         max_dropout_s=c.number(q, "max_dropout_s", "quality.max_dropout_s", qd.max_dropout_s, positive=True),
         max_dc_offset=c.number(q, "max_dc_offset", "quality.max_dc_offset", qd.max_dc_offset, minimum=0.0),
         min_rms_dbfs=c.number(q, "min_rms_dbfs", "quality.min_rms_dbfs", qd.min_rms_dbfs),
         min_snr_db=c.number(q, "min_snr_db", "quality.min_snr_db", qd.min_snr_db),
-        background_max_s=c.number(q, "background_max_s", "quality.background_max_s", qd.background_max_s, positive=True),
+        background_max_s=c.number(q, "background_max_s", "quality.background_max_s", qd.background_max_s,
+                                  positive=True),
     )
     if quality.clip_level > 1.0:
         c.fail("quality.clip_level", f"is a fraction of full scale and must be <= 1, got {quality.clip_level:g}")
@@ -344,7 +348,8 @@ def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
         after = ev.get("after")
         if after is not None:
             if not isinstance(after, str) or not any(e.name == after for e in events):
-                c.fail(p + "after", f"must name an earlier event ({', '.join(e.name for e in events) or 'none'}), got {after!r}")
+                c.fail(p + "after",
+                       f"must name an earlier event ({', '.join(e.name for e in events) or 'none'}), got {after!r}")
         length = c.number(ev, "length_s", p + "length_s", positive=True)
         win = c.number(ev, "slice_window_s", p + "slice_window_s", positive=True)
         hop = c.number(ev, "slice_hop_s", p + "slice_hop_s", positive=True)

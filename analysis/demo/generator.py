@@ -296,7 +296,8 @@ def _truth_row(p: PlannedActuation, t: dict) -> dict:
         "fault_start": p.fault_start,
         "severity": _fmt(t["clip_gain"] if p.condition == "clipping"
                          else (1000.0 * t["dropout_s"] if p.condition == "dropout" else p.severity), 2),
-        "severity_unit": p.severity_unit, "mains_hz": _fmt(pa.mains_hz, 1), "temperature_c": _fmt(t["temperature_c"], 3),
+        "severity_unit": p.severity_unit, "mains_hz": _fmt(pa.mains_hz, 1),
+        "temperature_c": _fmt(t["temperature_c"], 3),
         "flow_rel": _fmt(t["flow_rel"], 5), "cavity_volume_cm3": _fmt(pa.volume_m3 * 1e6, 6),
         "neck_radius_mm": _fmt(pa.neck_radius_m * 1e3, 6), "neck_length_mm": _fmt(pa.neck_length_m * 1e3, 6),
         "helmholtz_hz": _fmt(t["helmholtz_hz"], 2), "carrier_d50_um": _fmt(pa.d50_um, 3),

@@ -42,7 +42,8 @@ FLOW_NOISE_EXPONENT = 6.0
 def speed_of_sound_m_s(temperature_c):
     """Speed of sound in dry air, c = 331.3*sqrt(1 + T/273.15) m/s (343.21 m/s at 20 °C).
 
-    Ideal-gas dependence c ∝ sqrt(T_abs) from 331.3 m/s at 0 °C (Kinsler et al., Fundamentals of Acoustics, 4th ed.).
+    Ideal-gas dependence c ∝ sqrt(T_abs) from 331.3 m/s at 0 °C (Kinsler et al. 2000, Fundamentals of Acoustics,
+    4th ed.).
     """
     t = np.asarray(temperature_c, dtype=float)
     return 331.3 * np.sqrt(1.0 + t / 273.15)
@@ -51,7 +52,7 @@ def speed_of_sound_m_s(temperature_c):
 def helmholtz_frequency_hz(*, volume_m3, neck_radius_m, neck_length_m, temperature_c=20.0):
     """Helmholtz resonance f = (c/2π)·sqrt(A/(V·L_eff)) with A = π·a², L_eff = L + 1.7·a (both ends flanged).
 
-    Kinsler, Frey, Coppens & Sanders, Fundamentals of Acoustics, 4th ed.; the 1.7·a end correction (0.85·a per
+    Kinsler et al. 2000, Fundamentals of Acoustics, 4th ed.; the 1.7·a end correction (0.85·a per
     flanged end) is quoted from memory. V = 2 cm³, a = 2 mm, L = 10 mm at 20 °C gives 1182.8 Hz.
     """
     v = np.asarray(volume_m3, dtype=float)

@@ -260,7 +260,8 @@ def _fault(r: _Reader) -> Fault:
 
 
 def parse_scenario(doc: dict, *, source: str = "<scenario>", name: str | None = None) -> Scenario:
-    """Validate a parsed TOML document and return the :class:`Scenario` (``name``: used when scenario.name is absent)."""
+    """Validate a parsed TOML document and return the :class:`Scenario` (``name``: used when scenario.name is
+    absent)."""
     top = _Reader(source, doc, "")
     top.no_extra({"scenario", "recording", "plan", "sites", "rigs", "lots", "faults"})
 

@@ -53,7 +53,8 @@ def test_channel_out_of_range_names_the_file(tmp_path):
 def test_sidecar_round_trip(tmp_path):
     path = write_recording(tmp_path, sidecar=sidecar_dict(markers_s=[0.3, 0.38], notes="first run"))
     s = read_sidecar(sidecar_path(path))
-    assert (s.site, s.rig, s.lot, s.unit, s.actuation, s.profile) == ("Testfield", "TF-R1", "T001", "U01", 1, "demo-dpi")
+    assert (s.site, s.rig, s.lot, s.unit, s.actuation, s.profile) == ("Testfield", "TF-R1", "T001", "U01", 1,
+                                                                       "demo-dpi")
     assert s.recorded_at.utcoffset().total_seconds() == 3600
     assert s.markers_s == (0.3, 0.38)
     assert s.channels == {"mic": 0, "marker": 1}

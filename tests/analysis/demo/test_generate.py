@@ -135,12 +135,13 @@ def peak_hz(x, lo_hz, hi_hz, nperseg=8192):
 
 
 def helmholtz_from_row(r):
-    # Kinsler et al., Fundamentals of Acoustics 4th ed.: f = (c/2π)·sqrt(A/(V·L')), L' = L + 1.7a (end correction
+    # Kinsler et al. 2000, Fundamentals of Acoustics 4th ed.: f = (c/2π)·sqrt(A/(V·L')), L' = L + 1.7a (end correction
     # from memory), c = 331.3·sqrt(1 + T/273.15); computed here from the row's geometry, not by the generator.
     a = float(r["neck_radius_mm"]) * 1e-3
     c = 331.3 * np.sqrt(1.0 + float(r["temperature_c"]) / 273.15)
     area = np.pi * a**2
-    return c / (2 * np.pi) * np.sqrt(area / (float(r["cavity_volume_cm3"]) * 1e-6 * (float(r["neck_length_mm"]) * 1e-3 + 1.7 * a)))
+    return c / (2 * np.pi) * np.sqrt(area / (float(r["cavity_volume_cm3"]) * 1e-6
+                                             * (float(r["neck_length_mm"]) * 1e-3 + 1.7 * a)))
 
 
 def dose_window(x, r, start_s=0.05, length_s=0.5):

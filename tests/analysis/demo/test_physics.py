@@ -23,7 +23,7 @@ def test_speed_of_sound_at_20_c():
 
 
 def test_helmholtz_check_value():
-    # Kinsler et al., Fundamentals of Acoustics 4th ed. (end correction 1.7a from memory): V = 2 cm³, a = 2 mm,
+    # Kinsler et al. 2000, Fundamentals of Acoustics 4th ed. (end correction 1.7a from memory): V = 2 cm³, a = 2 mm,
     # L = 10 mm, 20 °C -> 1182.8 Hz (REFERENCES.md, [C])
     f = physics.helmholtz_frequency_hz(volume_m3=2e-6, neck_radius_m=2e-3, neck_length_m=10e-3, temperature_c=20.0)
     assert f == pytest.approx(1182.8, abs=0.1)

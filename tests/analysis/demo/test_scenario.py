@@ -58,7 +58,8 @@ def test_unknown_name():
         ('utc_offset = "+01:00"', 'utc_offset = "CET"', r"sites\[0\]\.utc_offset must be a UTC offset .*got 'CET'"),
         ('markers = "sidecar"', 'markers = "log"', r"rigs\[3\]\.markers must be \"channel\" or \"sidecar\", got 'log'"),
         ("units_per_lot = 4", "units_per_lot = 0", r"plan\.units_per_lot must be between 1 and 999, got 0"),
-        ('subtype = "PCM_16"', 'subtype = "FLOAT"', r"recording\.subtype must be \"PCM_16\" or \"PCM_24\", got 'FLOAT'"),
+        ('subtype = "PCM_16"', 'subtype = "FLOAT"',
+         r"recording\.subtype must be \"PCM_16\" or \"PCM_24\", got 'FLOAT'"),
         ("mic_distance_m = 0.10\ngain_db = 0.0\ndrive_hz = 137.0",
          "mic_distance_m = 0.10\ngain_db = 0.0\ndrive_hz = 137.0\nfocus = 1", r"rigs\[0\]\.focus is not a known key"),
         ('kind = "clipping"', 'kind = "hiss"', r"faults\[4\]\.kind must be one of coarse_carrier, .*got 'hiss'"),
@@ -80,13 +81,15 @@ def test_validation_errors_name_key_and_value(tmp_path, old, new, message):
 
 def test_fault_on_reference_lot_is_refused(tmp_path):
     sc = load_scenario(write(tmp_path, SMALL.replace('lot = "L2604"', 'lot = "L2602"')))
-    with pytest.raises(ScenarioError, match=r"faults\[0\] \(coarse_carrier\) hits L2602-01 .*reference lots must be normal"):
+    with pytest.raises(ScenarioError,
+                       match=r"faults\[0\] \(coarse_carrier\) hits L2602-01 .*reference lots must be normal"):
         plan_scenario(sc)
 
 
 def test_two_faults_on_one_actuation_are_refused(tmp_path):
     sc = load_scenario(write(tmp_path, SMALL.replace('units = ["L2605-01"]', 'units = ["L2604-01"]')))
-    with pytest.raises(ScenarioError, match=r"faults\[0\] \(coarse_carrier\) and faults\[1\] \(damaged_cavity\) both hit"):
+    with pytest.raises(ScenarioError,
+                       match=r"faults\[0\] \(coarse_carrier\) and faults\[1\] \(damaged_cavity\) both hit"):
         plan_scenario(sc)
 
 
