@@ -12,6 +12,8 @@ from __future__ import annotations
 
 import json
 import math
+import os
+import unicodedata
 import warnings
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -33,6 +35,10 @@ __all__ = [
     "sidecar_path",
     "is_recording",
     "AUDIO_SUFFIXES",
+    "printable_name",
+    "MAX_SIDECAR_BYTES",
+    "MAX_NAME_CHARS",
+    "MAX_NOTES_CHARS",
     "read_sidecar",
     "parse_sidecar",
     "SIDECAR_FIELDS",
@@ -83,6 +89,12 @@ class Audio:
         return self.samples[:, index]
 
 
+#: How the formats Harken takes from folders begin (RIFF/RIFX/RF64/BW64 WAV, FLAC (also after an ID3 tag), AIFF,
+#: Ogg, Wave64, CAF): a file with one of these endings that starts otherwise is not handed to libsndfile, whose
+#: guess at such a file is a misleading message (and, for MPEG, a decoder warning on the terminal).
+_MAGIC = (b"RIFF", b"RIFX", b"RF64", b"BW64", b"fLaC", b"ID3", b"FORM", b"OggS", b"riff", b"caff")
+
+
 def _check_file(path: Path) -> int:
     if not path.exists():
         raise AudioError(path, "file does not exist")
@@ -91,13 +103,21 @@ def _check_file(path: Path) -> int:
     size = path.stat().st_size
     if size == 0:
         raise AudioError(path, "file is empty (0 bytes)")
+    if path.suffix.lower() in AUDIO_SUFFIXES:
+        with open(path, "rb") as f:
+            head = f.read(4)
+        if not any(head.startswith(m[: len(head)]) and len(head) >= len(m) for m in _MAGIC):
+            raise AudioError(path, "not a recognised audio file: it does not start with a FLAC, WAV, AIFF, Ogg, "
+                                   f"Wave64 or CAF header (its first bytes are {head.hex(' ') or 'none'})")
     return size
 
 
 def _open_error(path: Path, exc: Exception) -> AudioError:
     text = str(exc).strip() or type(exc).__name__
     # libsndfile's message repeats the path; keep the reason only.
-    text = text.replace(f"Error opening {str(path)!r}: ", "").replace(str(path), "<file>")
+    for shown in (repr(os.fsencode(path)), repr(str(path))):  # soundfile names it as bytes or as text
+        text = text.replace(f"Error opening {shown}: ", "")
+    text = text.replace(str(path), "<file>")
     return AudioError(path, f"not a readable audio file ({text})")
 
 
@@ -118,7 +138,7 @@ def _info_from(handle: sf.SoundFile, path: Path, size: int) -> AudioInfo:
 
 def _open(path: Path) -> sf.SoundFile:
     try:
-        return sf.SoundFile(str(path))
+        return sf.SoundFile(os.fsencode(path))  # bytes: a name that is not UTF-8 opens too
     except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
         raise _open_error(path, exc) from None
 
@@ -245,59 +265,156 @@ def is_recording(path) -> bool:
     return p.suffix.lower() in AUDIO_SUFFIXES and not p.name.startswith(".") and p.is_file()
 
 
+def printable_name(name) -> str:
+    """A file name (or any text) as it may be stored and shown: bytes that are not UTF-8 (which Python keeps as
+    lone surrogates) and control characters are written as escapes, e.g. ``a\\xffb.flac`` for the bytes
+    61 ff 62; everything else is kept."""
+    text = os.fsdecode(name) if isinstance(name, bytes) else str(name)
+    try:
+        raw = os.fsencode(text)
+    except UnicodeEncodeError:  # a surrogate that no file name decoding made: keep its code point visible
+        raw = text.encode("utf-8", "backslashreplace")
+    out = raw.decode("utf-8", "backslashreplace")
+    return "".join(c if unicodedata.category(c) != "Cc" else f"\\x{ord(c):02x}" for c in out)
+
+
 def sidecar_path(recording_path) -> Path:
     """The sidecar that belongs to a recording: ``<stem>.json`` in the same folder."""
     p = Path(recording_path)
     return p.with_name(p.stem + ".json")
 
 
+#: A sidecar holds a few short fields; anything larger is not one (and would be kept whole in the store).
+MAX_SIDECAR_BYTES = 64 * 1024
+#: Longest site, rig, lot and unit name, and longest notes (characters).
+MAX_NAME_CHARS = 200
+MAX_NOTES_CHARS = 10_000
+#: Most marker times a sidecar may list.
+MAX_MARKERS = 64
+#: Longest recorded_at text (an ISO 8601 time with microseconds and offset is 32 characters).
+MAX_TIME_CHARS = 64
+#: Highest actuation number of a unit (a device fired more often than this is not a test rig's).
+MAX_ACTUATION = 10_000_000
+#: Deepest nesting of objects and lists in a sidecar's unknown fields.
+MAX_SIDECAR_DEPTH = 16
+
+
 def read_sidecar(path) -> Sidecar:
-    """Read and validate a sidecar JSON file (give the JSON's path, or the recording's: its sidecar is found)."""
+    """Read and validate a sidecar JSON file (give the JSON's path, or the recording's: its sidecar is found).
+
+    A symbolic link is refused without being followed; so is a file over MAX_SIDECAR_BYTES."""
     path = Path(path)
     if path.suffix.lower() != ".json":
         path = sidecar_path(path)
+    if path.is_symlink():
+        raise SidecarError(path, "sidecar is a symbolic link; only a file delivered beside the recording is read")
     if not path.exists():
         raise SidecarError(path, "sidecar metadata file is missing (expected beside the recording)")
     try:
-        text = path.read_text(encoding="utf-8")
-    except UnicodeDecodeError as exc:
-        raise SidecarError(path, f"sidecar is not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+        with open(path, "rb") as f:
+            data = f.read(MAX_SIDECAR_BYTES + 1)
     except OSError as exc:
         raise SidecarError(path, f"sidecar cannot be read ({exc.strerror or exc})") from None
+    if len(data) > MAX_SIDECAR_BYTES:
+        raise SidecarError(path, f"sidecar is larger than {MAX_SIDECAR_BYTES // 1024} KiB; a sidecar holds a few "
+                                 "short fields")
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise SidecarError(path, f"sidecar is not UTF-8 text ({exc.reason} at byte {exc.start})") from None
     try:
         obj = json.loads(text)
     except json.JSONDecodeError as exc:
         raise SidecarError(path, f"sidecar is not valid JSON ({exc.msg} at line {exc.lineno} "
                                  f"column {exc.colno})") from None
+    except RecursionError:
+        raise SidecarError(path, f"sidecar nests objects or lists more than {MAX_SIDECAR_DEPTH} deep") from None
     return parse_sidecar(obj, source=path)
 
 
-def _text(obj: dict, name: str, source) -> str:
+def _bad_character(value: str, *, allow: str = "") -> str | None:
+    """Why ``value`` is not acceptable text (a lone surrogate, which is no Unicode character, or a control or
+    format character other than those in ``allow``), or None."""
+    for i, c in enumerate(value):
+        cp = ord(c)
+        if 0xD800 <= cp <= 0xDFFF:
+            return f"holds U+{cp:04X} at character {i}, which is not a Unicode character"
+        if c in allow:
+            continue
+        cat = unicodedata.category(c)
+        if cat in ("Cc", "Cf"):
+            kind = "control" if cat == "Cc" else "invisible formatting"
+            return f"holds the {kind} character U+{cp:04X} at character {i}"
+    return None
+
+
+def _check_extra(value, source, key: str, depth: int = 0) -> None:
+    """Unknown fields are kept as they are: their text must be text and their nesting shallow (at most
+    MAX_SIDECAR_DEPTH objects or lists one inside the other)."""
+    if isinstance(value, (dict, list)) and depth >= MAX_SIDECAR_DEPTH:
+        raise SidecarError(source, f"field {key!r} nests objects or lists more than {MAX_SIDECAR_DEPTH} deep",
+                           field=key)
+    if isinstance(value, str):
+        why = _bad_character(value, allow="\t\n")
+        if why:
+            raise SidecarError(source, f"field {key!r} {why}", field=key)
+    elif isinstance(value, dict):
+        for k, v in value.items():
+            why = _bad_character(k)
+            if why:
+                raise SidecarError(source, f"a key inside field {key!r} {why}", field=key)
+            _check_extra(v, source, key, depth + 1)
+    elif isinstance(value, list):
+        for v in value:
+            _check_extra(v, source, key, depth + 1)
+
+
+def _text(obj: dict, name: str, source, *, max_chars: int = MAX_NAME_CHARS) -> str:
     value = obj[name]
     if not isinstance(value, str) or not value.strip():
-        raise SidecarError(source, f"field {name!r} must be non-empty text, got {value!r}", field=name)
-    return value.strip()
+        raise SidecarError(source, f"field {name!r} must be non-empty text, got {_short_repr(value)}", field=name)
+    why = _bad_character(value)
+    if why:
+        raise SidecarError(source, f"field {name!r} {why}", field=name)
+    value = value.strip()
+    if len(value) > max_chars:
+        raise SidecarError(source, f"field {name!r} is {len(value):,} characters long; at most {max_chars} are "
+                                   "allowed", field=name)
+    return value
+
+
+def _short_repr(value, limit: int = 80) -> str:
+    text = repr(value)
+    return text if len(text) <= limit else text[:limit] + "…"
 
 
 def parse_sidecar(obj: Any, *, source) -> Sidecar:
     """Validate sidecar data already parsed from JSON. Errors name the field and ``source``."""
     if not isinstance(obj, dict):
         raise SidecarError(source, f"sidecar must be a JSON object, got {type(obj).__name__}")
+    for key in obj:
+        why = _bad_character(key)
+        if why:
+            raise SidecarError(source, f"a field name {why}")
     for name, (required, what) in SIDECAR_FIELDS.items():
         if required and name not in obj:
             raise SidecarError(source, f"required field {name!r} is missing ({what})", field=name)
     site, rig, lot, unit, profile = (_text(obj, k, source) for k in ("site", "rig", "lot", "unit", "profile"))
 
     actuation = obj["actuation"]
-    if isinstance(actuation, bool) or not isinstance(actuation, int) or actuation < 1:
+    if isinstance(actuation, bool) or not isinstance(actuation, int) or not 1 <= actuation <= MAX_ACTUATION:
         raise SidecarError(
-            source, f"field 'actuation' must be an integer >= 1 (1-based within the unit), got {actuation!r}",
-            field="actuation",
+            source, f"field 'actuation' must be an integer from 1 to {MAX_ACTUATION:,} (1-based within the unit), "
+                    f"got {_short_repr(actuation)}", field="actuation",
         )
 
     raw_time = obj["recorded_at"]
+    if isinstance(raw_time, str) and len(raw_time) > MAX_TIME_CHARS:
+        raise SidecarError(source, f"field 'recorded_at' is {len(raw_time):,} characters long; at most "
+                                   f"{MAX_TIME_CHARS} are allowed", field="recorded_at")
     if not isinstance(raw_time, str):
-        raise SidecarError(source, f"field 'recorded_at' must be ISO 8601 text, got {raw_time!r}", field="recorded_at")
+        raise SidecarError(source, f"field 'recorded_at' must be ISO 8601 text, got {_short_repr(raw_time)}",
+                           field="recorded_at")
     try:
         recorded_at = datetime.fromisoformat(raw_time.strip())
     except ValueError:
@@ -310,13 +427,16 @@ def parse_sidecar(obj: Any, *, source) -> Sidecar:
             f"field 'recorded_at' must carry a UTC offset (e.g. 2026-03-02T09:14:05+01:00), got {raw_time!r}",
             field="recorded_at",
         )
+    if not 1970 <= recorded_at.year <= 2200:
+        raise SidecarError(source, f"field 'recorded_at' must be a time between 1970 and 2200, got {raw_time!r}",
+                           field="recorded_at")
 
     channels = None
     if obj.get("channels") is not None:
         raw = obj["channels"]
         if not isinstance(raw, dict):
-            raise SidecarError(source, f"field 'channels' must be an object like {{\"mic\": 0}}, got {raw!r}",
-                               field="channels")
+            raise SidecarError(source, "field 'channels' must be an object like {\"mic\": 0}, got "
+                                       f"{_short_repr(raw)}", field="channels")
         channels = {}
         for role, index in raw.items():
             if role not in _CHANNEL_ROLES:
@@ -341,17 +461,32 @@ def parse_sidecar(obj: Any, *, source) -> Sidecar:
             isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) and v >= 0 for v in raw
         ):
             raise SidecarError(
-                source, f"field 'markers_s' must be a list of times in seconds >= 0, got {raw!r}", field="markers_s"
+                source, f"field 'markers_s' must be a list of times in seconds >= 0, got {_short_repr(raw)}",
+                field="markers_s"
             )
         if any(b <= a for a, b in zip(raw, raw[1:])):
-            raise SidecarError(source, f"field 'markers_s' must be increasing, got {raw!r}", field="markers_s")
+            raise SidecarError(source, f"field 'markers_s' must be increasing, got {_short_repr(raw)}",
+                               field="markers_s")
+        if len(raw) > MAX_MARKERS:
+            raise SidecarError(source, f"field 'markers_s' holds {len(raw):,} times; a recording has at most "
+                                       f"{MAX_MARKERS} markers", field="markers_s")
         markers = tuple(float(v) for v in raw)
 
     notes = obj.get("notes")
-    if notes is not None and not isinstance(notes, str):
-        raise SidecarError(source, f"field 'notes' must be text, got {notes!r}", field="notes")
+    if notes is not None:
+        if not isinstance(notes, str):
+            raise SidecarError(source, f"field 'notes' must be text, got {_short_repr(notes)}", field="notes")
+        why = _bad_character(notes, allow="\t\n")
+        if why:
+            raise SidecarError(source, f"field 'notes' {why} (tab and newline are the only control characters "
+                                       "allowed there)", field="notes")
+        if len(notes) > MAX_NOTES_CHARS:
+            raise SidecarError(source, f"field 'notes' is {len(notes):,} characters long; at most "
+                                       f"{MAX_NOTES_CHARS:,} are allowed", field="notes")
 
     extra = {k: v for k, v in obj.items() if k not in SIDECAR_FIELDS}
+    for k, v in extra.items():
+        _check_extra(v, source, k)
     notes_out: tuple[str, ...] = ()
     if extra:
         msg = f"{source}: unknown sidecar field(s) kept but not used: {', '.join(sorted(extra))}"

@@ -57,7 +57,8 @@ def test_random_bytes_with_an_audio_extension(tmp_path, capsys, suffix):
     (tmp_path / "noise.json").write_text(json.dumps(sidecar_dict()))
     code, _, err = run_cli(capsys, "analyse", str(path))
     assert code != 0
-    assert err.startswith(f"harken: {path}: not a readable audio file")
+    assert err.startswith(f"harken: {path}: not a recognised audio file: it does not start with a FLAC, WAV")
+    assert "possibly a pipe" not in err and err.count("\n") == 1  # no misleading guess, no decoder warning
 
 
 def test_nan_and_inf_in_a_float_wav(tmp_path, capsys):
@@ -148,7 +149,8 @@ def test_sidecar_naming_an_unknown_profile_names_the_sidecar(tmp_path, capsys):
     path = write_recording(tmp_path, "odd", sidecar=sidecar_dict(profile="nosuch"))
     code, _, err = run_cli(capsys, "analyse", str(path))
     assert code == 1
-    assert err.startswith(f"harken: {tmp_path / 'odd.json'}: its profile 'nosuch' cannot be used: no device profile")
+    assert err.startswith(f"harken: {tmp_path / 'odd.json'}: its profile cannot be used: no device profile named "
+                          "'nosuch' (profiles here: demo-dpi)")
 
 
 def test_silent_calibration_recording_names_its_file(tmp_path, capsys):

@@ -3,13 +3,14 @@
 from __future__ import annotations
 
 import json
+import os
 
 import numpy as np
 import pytest
 import soundfile as sf
 
 from analysis.errors import AudioError, SidecarError
-from analysis.io import SidecarWarning, audio_info, read_audio, read_sidecar, sidecar_path
+from analysis.io import SidecarWarning, audio_info, printable_name, read_audio, read_sidecar, sidecar_path
 from tests.conftest import FS, sidecar_dict, write_recording
 
 
@@ -74,8 +75,8 @@ def test_unknown_sidecar_fields_are_kept_and_warned(tmp_path):
     "change,match",
     [
         ({"lot": None}, r"required field 'lot' is missing"),
-        ({"actuation": 0}, r"field 'actuation' must be an integer >= 1"),
-        ({"actuation": "3"}, r"field 'actuation' must be an integer >= 1.*'3'"),
+        ({"actuation": 0}, r"field 'actuation' must be an integer from 1 to 10,000,000"),
+        ({"actuation": "3"}, r"field 'actuation' must be an integer from 1 to 10,000,000.*'3'"),
         ({"actuation": True}, r"field 'actuation' must be an integer"),
         ({"recorded_at": "2026-03-02T09:14:05"}, r"field 'recorded_at' must carry a UTC offset"),
         ({"recorded_at": "yesterday"}, r"field 'recorded_at' is not an ISO 8601 time"),
@@ -113,3 +114,223 @@ def test_nan_in_float_wav_is_rejected_with_the_count(tmp_path):
     sf.write(str(path), data, FS, subtype="FLOAT")
     with pytest.raises(AudioError, match=r"nan\.wav: contains 2 non-finite sample\(s\)"):
         read_audio(path)
+
+
+# ------------------------------------------------------------------------------------------- sidecar limits
+
+TIME = "2026-03-02T09:14:05+01:00"
+
+
+def _nested(depth: int, leaf):
+    """``leaf`` inside ``depth`` lists."""
+    for _ in range(depth):
+        leaf = [leaf]
+    return leaf
+
+
+def _limit_cases():
+    for name in ("site", "rig", "lot", "unit", "profile"):
+        yield {name: "x" * 201}, name, rf"field '{name}' is 201 characters long; at most 200 are allowed$"
+    yield {"site": " " + "x" * 201}, "site", r"field 'site' is 201 characters long"  # counted after stripping
+    yield ({"notes": "n" * 10_001}, "notes",
+           r"field 'notes' is 10,001 characters long; at most 10,000 are allowed$")
+    for bad in (0, -1, 10_000_001):
+        yield ({"actuation": bad}, "actuation",
+               rf"field 'actuation' must be an integer from 1 to 10,000,000 \(1-based within the unit\), got {bad}$")
+    yield {"actuation": 10**90}, "actuation", r"got 1000000000000000000000000000000000000000000000000000000000000000"
+    yield {"actuation": 2.0}, "actuation", r"field 'actuation' must be an integer from 1 to 10,000,000.*got 2\.0$"
+    padded = TIME + " " * (65 - len(TIME))  # 65 characters; it would parse once stripped
+    yield ({"recorded_at": padded}, "recorded_at",
+           r"field 'recorded_at' is 65 characters long; at most 64 are allowed$")
+    yield {"recorded_at": "x" * 5000}, "recorded_at", r"is 5,000 characters long; at most 64 are allowed$"
+    yield {"recorded_at": 20260302}, "recorded_at", r"must be ISO 8601 text, got 20260302$"
+    for bad in ("1969-12-31T23:59:59+00:00", "2201-01-01T00:00:00+00:00", "0001-01-01T00:00:00+00:00"):
+        yield ({"recorded_at": bad}, "recorded_at",
+               rf"field 'recorded_at' must be a time between 1970 and 2200, got '{bad[:19]}\+00:00'$")
+    yield ({"markers_s": [0.01 * i for i in range(65)]}, "markers_s",
+           r"field 'markers_s' holds 65 times; a recording has at most 64 markers$")
+    yield {"site": "\ud800A"}, "site", r"field 'site' holds U\+D800 at character 0, which is not a Unicode character$"
+    yield {"rig": "R\x07"}, "rig", r"field 'rig' holds the control character U\+0007 at character 1$"
+    yield {"lot": "L\u202e1"}, "lot", r"field 'lot' holds the invisible formatting character U\+202E at character 1$"
+    yield {"unit": "U\n1"}, "unit", r"field 'unit' holds the control character U\+000A at character 1$"  # one line
+    yield {"unit": "U1\t"}, "unit", r"field 'unit' holds the control character U\+0009 at character 2$"
+    yield {"profile": "demo\u200bdpi"}, "profile", r"field 'profile' holds the invisible formatting character U\+200B"
+    for notes, cp, at in (("a\x00b", "0000", 1), ("line\r\n", "000D", 4), ("\udcff", "DCFF", 0),
+                          ("ok\u2066", "2066", 2)):
+        yield {"notes": notes}, "notes", rf"field 'notes' holds .*U\+{cp} at character {at}"
+    yield ({"notes": "a\x1bb"}, "notes", r"field 'notes' holds the control character U\+001B at character 1 \(tab "
+                                         r"and newline are the only control characters allowed there\)$")
+    yield {"operator": "k\x1bim"}, "operator", r"field 'operator' holds the control character U\+001B at character 1$"
+    yield {"operator": ["ok", {"x": "\ud83d"}]}, "operator", r"field 'operator' holds U\+D83D at character 0"
+    yield ({"rig_info": {"na\x00me": 1}}, "rig_info",
+           r"a key inside field 'rig_info' holds the control character U\+0000 at character 2$")
+    yield {"deep": _nested(17, 1)}, "deep", r"field 'deep' nests objects or lists more than 16 deep$"
+    yield {"deep": _nested(16, [])}, "deep", r"field 'deep' nests objects or lists more than 16 deep$"  # 17 lists
+    deep_obj: object = 1
+    for _ in range(17):
+        deep_obj = {"a": deep_obj}
+    yield {"deep": deep_obj}, "deep", r"field 'deep' nests objects or lists more than 16 deep$"
+
+
+LIMIT_CASES = list(_limit_cases())
+
+
+@pytest.mark.parametrize("change,field,match", LIMIT_CASES,
+                         ids=[f"{i}-{field}" for i, (_, field, _) in enumerate(LIMIT_CASES)])
+def test_sidecar_limits_name_the_file_the_field_and_the_value(tmp_path, change, field, match):
+    path = write_recording(tmp_path, sidecar=sidecar_dict(**change))
+    with pytest.raises(SidecarError, match=match) as info:
+        read_sidecar(path)
+    assert str(info.value).startswith(f"{tmp_path / 'rec.json'}: field '{field}' ") or (
+        str(info.value).startswith(f"{tmp_path / 'rec.json'}: a key inside field '{field}' "))
+    assert info.value.field == field
+    assert len(str(info.value)) < 400  # a huge bad value is shortened, never echoed whole
+
+
+@pytest.mark.parametrize("change,attribute,expected", [
+    ({"site": "S" * 200}, "site", "S" * 200),
+    ({"rig": "R" * 200}, "rig", "R" * 200),
+    ({"lot": "L" * 200}, "lot", "L" * 200),
+    ({"unit": "U" * 200}, "unit", "U" * 200),
+    ({"unit": "  " + "U" * 200 + " "}, "unit", "U" * 200),  # the limit applies to the stripped text
+    ({"site": "Prüfstand Nord – Halle 3 ✓"}, "site", "Prüfstand Nord – Halle 3 ✓"),  # letters and symbols are text
+    ({"notes": "line\tnine\n" * 1000}, "notes", "line\tnine\n" * 1000),  # 10,000 characters with tabs and newlines
+    ({"actuation": 1}, "actuation", 1),
+    ({"actuation": 10_000_000}, "actuation", 10_000_000),
+    ({"markers_s": [0.01 * i for i in range(64)]}, "markers_s", tuple(0.01 * i for i in range(64))),
+])
+def test_values_just_inside_the_sidecar_limits_are_taken(tmp_path, change, attribute, expected):
+    if "notes" in change:
+        assert len(change["notes"]) == 10_000
+    path = write_recording(tmp_path, sidecar=sidecar_dict(**change))
+    assert getattr(read_sidecar(path), attribute) == expected
+
+
+@pytest.mark.parametrize("text,year", [
+    ("1970-01-01T00:00:00+00:00", 1970),
+    ("2200-12-31T23:59:59+00:00", 2200),
+    ("2026-03-02T09:14:05+01:00" + " " * 39, 2026),  # 64 characters: the longest taken
+])
+def test_recorded_at_just_inside_its_limits_is_taken(tmp_path, text, year):
+    path = write_recording(tmp_path, sidecar=sidecar_dict(recorded_at=text))
+    s = read_sidecar(path)
+    assert s.recorded_at.year == year and s.recorded_at.utcoffset() is not None
+
+
+@pytest.mark.parametrize("value", [_nested(16, "leaf"), _nested(15, []), _nested(15, {})])
+def test_unknown_field_nested_16_deep_is_kept(tmp_path, value):
+    path = write_recording(tmp_path, sidecar=sidecar_dict(deep=value))
+    with pytest.warns(SidecarWarning, match="deep"):
+        s = read_sidecar(path)
+    assert s.extra == {"deep": value}
+
+
+def test_a_field_name_with_a_control_character_is_refused(tmp_path):
+    path = write_recording(tmp_path, sidecar=sidecar_dict(**{"op\x01erator": "kim"}))
+    with pytest.raises(SidecarError, match=r"rec\.json: a field name holds the control character U\+0001 at "
+                                           r"character 2$"):
+        read_sidecar(path)
+
+
+def test_a_sidecar_nested_past_the_parsers_recursion_limit_is_refused(tmp_path):
+    path = write_recording(tmp_path, sidecar=False)
+    base = json.dumps(sidecar_dict())[:-1]
+    text = base + ', "deep": ' + "[" * 25_000 + "]" * 25_000 + "}"
+    assert len(text.encode()) < 64 * 1024  # under the size limit: the nesting is what is refused
+    (tmp_path / "rec.json").write_text(text)
+    with pytest.raises(SidecarError, match=r"^.*rec\.json: sidecar nests objects or lists more than 16 deep$"):
+        read_sidecar(path)
+
+
+def _sidecar_of_size(n_bytes: int) -> bytes:
+    base = json.dumps(sidecar_dict(pad=""))
+    pad = n_bytes - len(base.encode())
+    data = json.dumps(sidecar_dict(pad="p" * pad)).encode()
+    assert len(data) == n_bytes
+    return data
+
+
+def test_a_sidecar_over_64_kib_is_refused_and_one_of_64_kib_is_read(tmp_path):
+    path = write_recording(tmp_path, sidecar=False)
+    (tmp_path / "rec.json").write_bytes(_sidecar_of_size(64 * 1024))
+    with pytest.warns(SidecarWarning, match="pad"):
+        assert len(read_sidecar(path).extra["pad"]) > 60_000
+    (tmp_path / "rec.json").write_bytes(_sidecar_of_size(64 * 1024 + 1))
+    with pytest.raises(SidecarError) as info:
+        read_sidecar(path)
+    assert str(info.value) == (f"{tmp_path / 'rec.json'}: sidecar is larger than 64 KiB; a sidecar holds a few "
+                               "short fields")
+
+
+@pytest.mark.parametrize("dangling", [False, True])
+def test_a_sidecar_that_is_a_symbolic_link_is_refused_unread(tmp_path, dangling):
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    target = elsewhere / "real.json"
+    if not dangling:
+        target.write_text(json.dumps(sidecar_dict()))  # a valid sidecar: the link, not its content, is refused
+    path = write_recording(tmp_path / "inbox", sidecar=False)
+    os.symlink(target, tmp_path / "inbox" / "rec.json")
+    with pytest.raises(SidecarError) as info:
+        read_sidecar(path)
+    assert str(info.value) == (f"{tmp_path / 'inbox' / 'rec.json'}: sidecar is a symbolic link; only a file "
+                               "delivered beside the recording is read")
+    assert str(target) not in str(info.value)
+
+
+# ------------------------------------------------------------------------------------- names and audio headers
+
+def test_printable_name_escapes_undecodable_bytes_and_control_characters(tmp_path):
+    raw = os.fsencode(tmp_path) + b"/a\xffb.flac"
+    with open(raw, "wb") as f:
+        f.write(b"x")
+    (listed,) = os.listdir(tmp_path)
+    assert listed == os.fsdecode(b"a\xffb.flac") == "a\udcffb.flac"  # how Python hands such a name over
+    assert printable_name(listed) == "a\\xffb.flac"
+    assert printable_name(b"a\xffb.flac") == "a\\xffb.flac"
+    assert printable_name("line\nbreak\x7f.flac") == "line\\x0abreak\\x7f.flac"
+    assert printable_name("\ud800.flac") == "\\ud800.flac"  # a surrogate no file name decoding makes
+    assert printable_name("Prüfstand – ✓.flac") == "Prüfstand – ✓.flac"
+    for name in (listed, "line\nbreak.flac", "\ud800.flac"):
+        printable_name(name).encode("utf-8")  # always storable text: this raises if a surrogate is left
+
+
+@pytest.mark.parametrize("name", ["noise.flac", "noise.wav", "NOISE.FLAC", "noise.ogg", "noise.aiff"])
+def test_random_bytes_with_an_audio_ending_are_refused_before_decoding(tmp_path, name):
+    data = b"\x00\x13" + np.random.default_rng(7).bytes(20_000)
+    path = tmp_path / name
+    path.write_bytes(data)
+    want = (f"{path}: not a recognised audio file: it does not start with a FLAC, WAV, AIFF, Ogg, Wave64 or CAF "
+            f"header (its first bytes are {data[:4].hex(' ')})")
+    for reader in (read_audio, audio_info):
+        with pytest.raises(AudioError) as info:
+            reader(path)
+        assert str(info.value) == want
+
+
+def test_a_file_shorter_than_any_header_is_refused(tmp_path):
+    path = tmp_path / "tiny.flac"
+    path.write_bytes(b"fL")
+    with pytest.raises(AudioError, match=r"tiny\.flac: not a recognised audio file: .*its first bytes are 66 4c\)$"):
+        read_audio(path)
+
+
+def test_a_known_header_with_garbage_after_it_goes_on_to_the_decoder(tmp_path):
+    path = tmp_path / "fake.flac"
+    path.write_bytes(b"fLaC" + np.random.default_rng(8).bytes(5000))
+    with pytest.raises(AudioError, match=r"fake\.flac: not a readable audio file") as info:
+        read_audio(path)
+    assert "not a recognised" not in str(info.value)
+
+
+@pytest.mark.parametrize("fmt,subtype,suffix", [
+    ("FLAC", "PCM_16", ".flac"), ("WAV", "PCM_16", ".wav"), ("WAVEX", "FLOAT", ".wav"), ("RF64", "PCM_16", ".wav"),
+    ("AIFF", "PCM_16", ".aif"), ("AIFF", "PCM_24", ".aiff"), ("W64", "PCM_16", ".w64"), ("CAF", "PCM_16", ".caf"),
+    ("OGG", "VORBIS", ".ogg"),
+])
+def test_every_format_taken_from_folders_passes_the_header_check(tmp_path, fmt, subtype, suffix):
+    x = 0.25 * np.sin(2 * np.pi * 440.0 * np.arange(FS // 10) / FS)
+    path = tmp_path / f"tone{suffix}"
+    sf.write(str(path), x[:, None], FS, format=fmt, subtype=subtype)
+    audio = read_audio(path)
+    assert audio.samples.shape == (FS // 10, 1) and audio.sample_rate_hz == FS
