@@ -16,7 +16,7 @@ import numpy as np
 
 from . import io
 from .errors import AudioError, ProfileError
-from .profiles import BandSpec, DeviceProfile, EventSpec, load_profile
+from .profiles import BandSpec, DeviceProfile, EventSpec, find_profile, load_profile
 from .signal import bands as _bands
 from .signal import events as _events
 from .signal import features as _features
@@ -48,6 +48,8 @@ class RecordingResult:
     marker_source: str
     notes: tuple[str, ...] = ()
     sidecar: io.Sidecar | None = field(default=None, repr=False)
+    profile_version: int = 1
+    profile_sha256: str = ""  # of the profile file the analysis used
 
     @property
     def passed_qc(self) -> bool:
@@ -69,6 +71,8 @@ class RecordingResult:
             "recording": {
                 "path": self.path,
                 "profile": self.profile,
+                "profile_version": self.profile_version,
+                "profile_sha256": self.profile_sha256,
                 "sample_rate_hz": self.sample_rate_hz,
                 "channels": self.n_channels,
                 "duration_s": json_number(self.duration_s),
@@ -251,6 +255,8 @@ def analyse_signals(
         marker_source=marker_source,
         notes=tuple(notes),
         sidecar=sidecar,
+        profile_version=profile.version,
+        profile_sha256=profile.sha256,
     )
 
 
@@ -280,6 +286,11 @@ def _find(mic, fs, spec: EventSpec, markers, timings, onsets, floor_db):
     )
 
 
+#: Below this the onset search and the slice grid have no samples to work on: such a file is not analysed at all
+#: (a rate between this and a profile's accepted range is analysed, and its sample_rate check fails).
+MIN_ANALYSABLE_RATE_HZ = 1000
+
+
 def analyse_file(
     path,
     *,
@@ -288,27 +299,30 @@ def analyse_file(
     offset_db: float = 0.0,
     require_sidecar: bool = True,
 ) -> RecordingResult:
-    """Read a recording and its sidecar and analyse it. The profile is the sidecar's unless one is given.
+    """Read a recording and its sidecar and analyse it. The profile is the sidecar's unless one is given: the
+    sidecar names it, and only a name is taken (looked up in ``profile_dirs``, then the shipped profiles); a
+    ``profile`` given by the caller may also be a path to a .toml file (the command line's own user).
 
     Raises AudioError / SidecarError / ProfileError (all AnalysisError) naming the file and the reason.
     """
     path = Path(path)
     audio = io.read_audio(path)  # a non-audio file fails before we look for its sidecar
     info = audio.info
+    if info.sample_rate_hz < MIN_ANALYSABLE_RATE_HZ:
+        raise AudioError(path, f"its sample rate of {info.sample_rate_hz} Hz is too low to analyse (at least "
+                               f"{MIN_ANALYSABLE_RATE_HZ} Hz; a device profile says which rates it accepts)")
     sidecar = None
     if require_sidecar or io.sidecar_path(path).exists():
         sidecar = io.read_sidecar(io.sidecar_path(path))
     if profile is None:
         if sidecar is None:
             raise AudioError(path, "no device profile given and no sidecar to name one")
-        profile = sidecar.profile
-    if not isinstance(profile, DeviceProfile):
         try:
-            profile = load_profile(profile, search_dirs=profile_dirs)
+            profile = find_profile(sidecar.profile, search_dirs=profile_dirs)
         except ProfileError as exc:
-            if sidecar is not None and profile == sidecar.profile:
-                raise ProfileError(sidecar.path, f"its profile {profile!r} cannot be used: {exc.reason}") from None
-            raise
+            raise ProfileError(sidecar.path, f"its profile cannot be used: {exc.reason}") from None
+    elif not isinstance(profile, DeviceProfile):
+        profile = load_profile(profile, search_dirs=profile_dirs)
     mic_index, marker_index, source = markers_for(audio.n_channels, profile, sidecar)
     return analyse_signals(
         audio.channel(mic_index),

@@ -1,13 +1,18 @@
 """Device profiles: what events a device type has and how to analyse them (Harken's own TOML schema, version 1).
 
 A profile named NAME is the file ``NAME.toml``, looked up in the folders given by the caller (``--profiles DIR``,
-in order), then in the shipped ``demo_data/profiles/``. A path to a ``.toml`` file is used as it is. Every key is
-validated once, on load; an error names the file, the key and the bad value. The README documents the schema.
+in order), then in the shipped ``demo_data/profiles/``. ``find_profile`` takes a name only: what a recording's
+sidecar or a dashboard request names is never read as a path. ``load_profile`` (the command line's
+``--profile``) also takes a path to a ``.toml`` file. Every key is validated once, on load; an error names the
+file, the key and the bad value. A loaded profile carries its ``version`` (``[profile] version``) and the
+SHA-256 of its file, which the store records with every analysis. The README documents the schema.
 """
 
 from __future__ import annotations
 
+import hashlib
 import math
+import re
 import tomllib
 from collections.abc import Iterable
 from dataclasses import dataclass
@@ -24,6 +29,8 @@ __all__ = [
     "DeviceProfile",
     "SCHEMA_VERSION",
     "load_profile",
+    "find_profile",
+    "is_profile_name",
     "parse_profile",
     "profile_search_dirs",
     "shipped_profiles_dir",
@@ -93,6 +100,8 @@ class DeviceProfile:
     quality: QualityLimits
     events: tuple[EventSpec, ...]
     source: str
+    version: int = 1
+    sha256: str = ""  # of the profile file's bytes ("" for a profile made from data in memory)
 
     def event(self, name: str) -> EventSpec:
         for ev in self.events:
@@ -125,8 +134,36 @@ def profile_search_dirs(extra: Iterable[str | Path] = ()) -> list[Path]:
     return [Path(d) for d in extra] + [shipped_profiles_dir()]
 
 
+_NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]{0,63}")
+
+
+def is_profile_name(text) -> bool:
+    """A profile name: 1 to 64 letters, digits, '.', '_' or '-', starting with a letter or digit (so never a path)."""
+    return isinstance(text, str) and _NAME.fullmatch(text) is not None and not text.endswith(".toml")
+
+
+def find_profile(name: str, *, search_dirs: Iterable[str | Path] = ()) -> DeviceProfile:
+    """Load and validate the profile called ``name`` from ``search_dirs`` then the shipped folder. Only a name is
+    accepted, never a path; the error for an unknown name lists the names there are, not the folders."""
+    if not is_profile_name(name):
+        raise ProfileError("profile", f"{str(name)[:80]!r} is not a device profile name (1 to 64 letters, digits, "
+                                      "'.', '_' or '-'; a path is never taken)")
+    dirs = profile_search_dirs(search_dirs)
+    for folder in dirs:
+        path = folder / f"{name}.toml"
+        if path.is_file():
+            prof = _load_file(path)
+            if prof.name != name:
+                raise ProfileError(f"{name}.toml", f"key 'profile.name' is {prof.name!r}; the file {name}.toml must "
+                                                   f"be called {name!r} inside too")
+            return prof
+    known = sorted({p.stem for d in dirs if d.is_dir() for p in d.glob("*.toml") if is_profile_name(p.stem)})
+    raise ProfileError(name, f"no device profile named {name!r} (profiles here: {', '.join(known) or 'none'})")
+
+
 def load_profile(name_or_path: str | Path, *, search_dirs: Iterable[str | Path] = ()) -> DeviceProfile:
-    """Load and validate a profile by name (searched in ``search_dirs`` then the shipped folder) or by path."""
+    """Load and validate a profile by name (searched in ``search_dirs`` then the shipped folder) or, for the
+    command line's own user, by path to a .toml file."""
     text = str(name_or_path)
     candidate = Path(text)
     if text.endswith(".toml") or candidate.is_file() or "/" in text or "\\" in text:
@@ -144,18 +181,19 @@ def load_profile(name_or_path: str | Path, *, search_dirs: Iterable[str | Path] 
 
 def _load_file(path: Path) -> DeviceProfile:
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
+        raw = path.read_bytes()
+        data = tomllib.loads(raw.decode("utf-8"))
     except tomllib.TOMLDecodeError as exc:
         raise ProfileError(path, f"not valid TOML ({exc})") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise ProfileError(path, f"cannot be read ({exc})") from None
-    return parse_profile(data, source=path)
+    return parse_profile(data, source=path, sha256=hashlib.sha256(raw).hexdigest())
 
 
 # --------------------------------------------------------------------------------------------------- validation
 
 _TOP_KEYS = {"profile", "audio", "bands", "quality", "events"}
-_PROFILE_KEYS = {"name", "schema", "description"}
+_PROFILE_KEYS = {"name", "schema", "version", "description"}
 _AUDIO_KEYS = {"sample_rate_min_hz", "sample_rate_max_hz", "min_duration_s", "channels"}
 _BAND_KEYS = {"kind", "fmin_hz", "fmax_hz", "n_bands", "weighting"}
 _EVENT_KEYS = {
@@ -262,8 +300,8 @@ def _bands(c: _Checker, table: dict, prefix: str, default: BandSpec | None) -> B
     return BandSpec(kind=kind, fmin_hz=fmin, fmax_hz=fmax, n_bands=n_bands, weighting=weighting)
 
 
-def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
-    """Validate profile data already parsed from TOML; ``source`` names it in errors."""
+def parse_profile(data: dict[str, Any], *, source, sha256: str = "") -> DeviceProfile:
+    """Validate profile data already parsed from TOML; ``source`` names it in errors, ``sha256`` is its file's."""
     c = _Checker(source)
     if not isinstance(data, dict):
         raise ProfileError(source, "a profile must be a TOML document with tables")
@@ -272,6 +310,9 @@ def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
     head = c.table(data, "profile", "profile")
     c.unknown(head, _PROFILE_KEYS, "profile.")
     name = c.text(head, "name", "profile.name")
+    if not is_profile_name(name):
+        c.fail("profile.name", f"must be 1 to 64 letters, digits, '.', '_' or '-', got {name!r}")
+    version = c.integer(head, "version", "profile.version", 1, minimum=1)
     schema = c.integer(head, "schema", "profile.schema", SCHEMA_VERSION, minimum=1)
     if schema > SCHEMA_VERSION:
         c.fail("profile.schema", f"is {schema}, newer than this Harken understands ({SCHEMA_VERSION}); upgrade Harken")
@@ -386,4 +427,6 @@ def parse_profile(data: dict[str, Any], *, source) -> DeviceProfile:
         quality=quality,
         events=tuple(events),
         source=str(source),
+        version=version,
+        sha256=sha256,
     )

@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from .monitor import ReferenceModel
-from .profiles import load_profile
+from .profiles import find_profile
 from .scoring import FeatureSet, current_user, fit_event_model
 from .store import Store, StoreError
 from .store.codec import missing_event, scored_events
@@ -78,7 +78,7 @@ def build_reference(
     """Fit one reference model per event from the band levels stored for ``lots``, store each as the new active
     version (audited), and score every stored actuation of the profile with it. ``events`` None or empty means
     every event of the profile."""
-    prof = load_profile(profile, search_dirs=profile_dirs)
+    prof = find_profile(profile, search_dirs=profile_dirs)  # a name, never a path (the dashboard calls this)
     names = list(events or prof.event_names)
     for e in names:
         prof.event(e)  # unknown event -> ProfileError naming the events there are

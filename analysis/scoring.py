@@ -133,6 +133,8 @@ def fit_event_model(
     spec = profile.event(fs.event)
     meta = {
         "profile": profile.name,
+        "profile_version": profile.version,
+        "profile_sha256": profile.sha256,
         "event": fs.event,
         "reference_lots": distinct,
         "n_recordings": len(fs.paths),

@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
+import hashlib
 import tomllib
 
 import pytest
 
 from analysis.errors import ProfileError
-from analysis.profiles import load_profile, parse_profile, shipped_profiles_dir
+from analysis.profiles import find_profile, is_profile_name, load_profile, parse_profile, shipped_profiles_dir
 
 DEMO = shipped_profiles_dir() / "demo-dpi.toml"
 
@@ -95,3 +96,150 @@ def test_per_event_band_override_inherits_the_rest():
     assert p.event("metering_click").bands.fmin_hz == 500.0
     assert p.event("metering_click").bands.fmax_hz == 16000.0
     assert p.event("dose_release").bands.fmin_hz == 200.0
+
+
+# ---------------------------------------------------------------------------------- lookup by name only
+
+REFUSED = ["/etc/passwd", "../x", "a/b", "x.toml", "demo-dpi.toml", "..", ".hidden", "a\\b", "demo-dpi\n", "",
+           "x" * 65, "C:x", "name with space"]
+REFUSAL = (r"^profile: .* is not a device profile name \(1 to 64 letters, digits, '\.', '_' or '-'; a path is never "
+           r"taken\)$")
+
+
+def _profile_text(name: str, *, version: int | None = None) -> str:
+    text = DEMO.read_text().replace('name = "demo-dpi"', f'name = "{name}"')
+    if version is None:
+        return "\n".join(line for line in text.splitlines() if not line.startswith("version ="))
+    return text.replace("version = 1 ", f"version = {version} ")
+
+
+def test_find_profile_takes_a_plain_name():
+    prof = find_profile("demo-dpi")
+    assert prof == load_profile("demo-dpi")
+    assert prof.name == "demo-dpi" and prof.source == str(DEMO)
+
+
+def test_find_profile_searches_the_given_folders_first(tmp_path):
+    (tmp_path / "demo-dpi.toml").write_text(_profile_text("demo-dpi").replace("Invented", "Site copy of the"))
+    (tmp_path / "mine_2.0.toml").write_text(_profile_text("mine_2.0"))  # '.', '_' and digits belong in a name
+    assert find_profile("demo-dpi", search_dirs=[tmp_path]).source == str(tmp_path / "demo-dpi.toml")
+    assert find_profile("demo-dpi", search_dirs=[tmp_path]).description.startswith("Site copy")
+    assert find_profile("mine_2.0", search_dirs=[tmp_path]).name == "mine_2.0"
+
+
+@pytest.mark.parametrize("name", REFUSED)
+def test_find_profile_refuses_anything_but_a_name(tmp_path, name):
+    (tmp_path / "x.toml").write_text(_profile_text("x"))  # '../x' and 'x.toml' would reach this file as paths
+    sub = tmp_path / "profiles"
+    sub.mkdir()
+    with pytest.raises(ProfileError, match=REFUSAL):
+        find_profile(name, search_dirs=[sub])
+    assert not is_profile_name(name)
+
+
+@pytest.mark.parametrize("pair", [
+    ("/etc/passwd", "/etc/no-such-file-here"),
+    ("{tmp}/real.toml", "{tmp}/ghost.toml"),
+    ("../real", "../ghost"),
+    ("real.toml", "ghost.toml"),
+])
+def test_a_refused_path_does_not_tell_whether_the_file_exists(tmp_path, pair):
+    (tmp_path / "real.toml").write_text(_profile_text("real"))
+    sub = tmp_path / "profiles"
+    sub.mkdir()
+    existing, absent = (p.format(tmp=tmp_path) for p in pair)
+    messages = []
+    for name in (existing, absent):
+        with pytest.raises(ProfileError) as info:
+            find_profile(name, search_dirs=[sub])
+        messages.append(str(info.value).replace(name, "NAME"))
+    assert messages[0] == messages[1]
+    assert "exist" not in messages[0] and "real" not in messages[0]
+
+
+def test_an_unknown_name_lists_the_known_names_not_the_folders(tmp_path):
+    first, second = tmp_path / "a", tmp_path / "b"
+    first.mkdir()
+    second.mkdir()
+    (first / "mine.toml").write_text(_profile_text("mine"))
+    (second / "other.toml").write_text(_profile_text("other"))
+    (second / "mine.toml").write_text(_profile_text("mine"))  # listed once
+    (second / "not a name.toml").write_text(_profile_text("x"))  # not a profile name: not offered
+    (second / "notes.txt").write_text("not a profile")
+    with pytest.raises(ProfileError) as info:
+        find_profile("nosuch", search_dirs=[first, second])
+    assert str(info.value) == "nosuch: no device profile named 'nosuch' (profiles here: demo-dpi, mine, other)"
+    assert str(tmp_path) not in str(info.value) and str(shipped_profiles_dir()) not in str(info.value)
+
+
+@pytest.mark.parametrize("inside", ["demo-dpi", "site-variant"])
+def test_a_profile_whose_name_differs_from_its_file_name_is_refused(tmp_path, inside):
+    (tmp_path / "foo.toml").write_text(_profile_text(inside))
+    with pytest.raises(ProfileError) as info:
+        find_profile("foo", search_dirs=[tmp_path])
+    assert str(info.value) == (f"foo.toml: key 'profile.name' is {inside!r}; the file foo.toml must be called 'foo' "
+                               "inside too")
+    assert str(tmp_path) not in str(info.value)
+
+
+def test_a_mismatched_file_is_not_passed_over_for_the_shipped_one(tmp_path):
+    (tmp_path / "demo-dpi.toml").write_text(_profile_text("site-variant"))
+    with pytest.raises(ProfileError, match=r"^demo-dpi\.toml: key 'profile\.name' is 'site-variant'"):
+        find_profile("demo-dpi", search_dirs=[tmp_path])
+
+
+@pytest.mark.parametrize("name,ok", [
+    ("demo-dpi", True), ("A", True), ("9", True), ("x" * 64, True), ("a.b_c-d", True),
+    ("x" * 65, False), ("-lead", False), ("_lead", False), ("x.toml", False), ("a b", False), ("é", False),
+    (None, False), (3, False), (b"demo", False),
+])
+def test_is_profile_name(name, ok):
+    assert is_profile_name(name) is ok
+
+
+def test_a_profile_name_inside_the_file_must_be_a_name():
+    data = demo_data()
+    data["profile"]["name"] = "../etc"
+    with pytest.raises(ProfileError, match=r"^site\.toml: key 'profile\.name': must be 1 to 64 letters, digits, "
+                                           r"'\.', '_' or '-', got '\.\./etc'$"):
+        parse_profile(data, source="site.toml")
+
+
+# ------------------------------------------------------------------------------------- version and checksum
+
+def test_version_defaults_to_1_and_is_read_from_the_profile_table(tmp_path):
+    (tmp_path / "plain.toml").write_text(_profile_text("plain"))
+    (tmp_path / "third.toml").write_text(_profile_text("third", version=3))
+    assert "version" not in tomllib.loads((tmp_path / "plain.toml").read_text())["profile"]
+    assert find_profile("plain", search_dirs=[tmp_path]).version == 1
+    assert find_profile("third", search_dirs=[tmp_path]).version == 3
+    assert find_profile("demo-dpi").version == tomllib.loads(DEMO.read_text())["profile"]["version"]
+
+
+@pytest.mark.parametrize("bad,match", [
+    (0, r"key 'profile\.version': must be >= 1, got 0$"),
+    (-2, r"key 'profile\.version': must be >= 1, got -2$"),
+    ("2", r"key 'profile\.version': must be an integer, got '2'$"),
+    (True, r"key 'profile\.version': must be an integer, got True$"),
+    (1.5, r"key 'profile\.version': must be an integer, got 1\.5$"),
+])
+def test_a_bad_version_names_the_key_and_value(bad, match):
+    data = demo_data()
+    data["profile"]["version"] = bad
+    with pytest.raises(ProfileError, match=r"^site\.toml: " + match):
+        parse_profile(data, source="site.toml")
+
+
+def test_sha256_is_that_of_the_files_bytes(tmp_path):
+    path = tmp_path / "mine.toml"
+    path.write_bytes(_profile_text("mine").encode())
+    first = find_profile("mine", search_dirs=[tmp_path])
+    # hashlib is the reference: the checksum is of the bytes on disk, whatever TOML makes of them
+    assert first.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
+    path.write_bytes(path.read_bytes() + b"\n# a comment changes the file, not the profile\n")
+    second = find_profile("mine", search_dirs=[tmp_path])
+    assert second.sha256 == hashlib.sha256(path.read_bytes()).hexdigest() != first.sha256
+    assert second.events == first.events and second.bands == first.bands
+    assert find_profile("demo-dpi").sha256 == hashlib.sha256(DEMO.read_bytes()).hexdigest()
+    assert load_profile(path).sha256 == second.sha256  # by path (the command line's way), the same
+    assert parse_profile(demo_data(), source="memory").sha256 == ""  # no file, no checksum
