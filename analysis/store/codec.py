@@ -4,6 +4,8 @@
   columns; slice times and band centres as little-endian float64 (axes: few values, and they must compare
   exactly).
 - Numbers: a finite float or NULL (NaN and infinity are stored as NULL on every backend).
+- Text: as given, except what no backend can hold: a lone surrogate (a byte of a file name that was not UTF-8)
+  and NUL are written as escapes (\\udcff, \\x00), so a bad name never stops a write.
 - Reference models: the JSON text and npz bytes of analysis.monitor's model documents, verbatim.
 - Monitoring results: one trajectories row and its flag rows per scored event (``ScoredEvent``).
 """
@@ -18,7 +20,7 @@ from analysis.monitor import ReferenceModel
 
 from .types import ScoredEvent
 
-__all__ = ["f32", "f64", "num", "from_f32", "from_f64", "event_arrays", "model_to_blobs", "model_from_blobs",
+__all__ = ["f32", "f64", "num", "text", "from_f32", "from_f64", "event_arrays", "model_to_blobs", "model_from_blobs",
            "scored_events", "missing_event"]
 
 
@@ -38,6 +40,25 @@ def num(x):
         return None
     x = float(x)
     return x if math.isfinite(x) else None
+
+
+def text(value):
+    """Text as it may be stored on SQLite and PostgreSQL alike (None stays None); see the module docstring."""
+    if value is None:
+        return None
+    value = str(value)
+    if value.isascii() and "\x00" not in value:
+        return value
+    out = []
+    for c in value:
+        cp = ord(c)
+        if 0xD800 <= cp <= 0xDFFF:
+            out.append(f"\\u{cp:04x}")
+        elif cp == 0:
+            out.append("\\x00")
+        else:
+            out.append(c)
+    return "".join(out)
 
 
 def from_f32(blob, shape=None) -> np.ndarray | None:

@@ -300,10 +300,82 @@ class Store:
         with self.read() as conn:
             return queries.audit_log(conn)
 
-    def check_integrity(self) -> list[str]:
-        """Problems found (empty when every analysed recording is whole and every quarantined one has a reason)."""
+    def check_integrity(self, *, checksums: bool = True, files: bool = True, contents: bool = False) -> list[str]:
+        """Problems found, in words (empty when there are none): recordings that are not whole (every analysed
+        one has one actuation, its QC rows and events; every quarantined one a reason), rows whose content no
+        longer matches its checksum (``checksums``; analysis.store.integrity), and (``files``) archived or
+        quarantined copies that are missing (a recording's or an archived sidecar's), files in the archive or
+        quarantine folders that no recording points to, and temporary copies left behind; with ``contents``
+        also every archived recording whose bytes no longer hash to its content hash (reads every file)."""
         with self.read() as conn:
-            return queries.check_integrity(conn)
+            problems = queries.check_integrity(conn)
+            if checksums:
+                from .integrity import verify_checksums
+
+                problems += verify_checksums(conn)
+            kept = queries.kept_files(conn) if files or contents else None
+        if files:
+            problems += self._file_problems(kept)
+        if contents:
+            problems += self._content_problems(kept)
+        return problems
+
+    def _content_problems(self, kept: dict) -> list[str]:
+        """Archived originals whose SHA-256 is no longer the content hash they are filed under."""
+        import hashlib
+
+        out = []
+        for path, (recording_id, status, content_hash, _side) in sorted(kept.items()):
+            p = Path(path)
+            if status != "analysed" or not p.is_file():
+                continue  # quarantined copies may be markers of refused links; a missing file is listed apart
+            h = hashlib.sha256()
+            with open(p, "rb") as f:
+                for block in iter(lambda: f.read(1 << 20), b""):
+                    h.update(block)
+            if h.hexdigest() != content_hash:
+                out.append(f"recording {recording_id} ({status}): its archived copy {self._shown(p)} has changed "
+                           f"(SHA-256 {h.hexdigest()[:12]}…, filed as {content_hash[:12]}…)")
+        return out
+
+    def _shown(self, p: Path) -> str:
+        try:
+            return str(p.relative_to(self.files_dir))
+        except ValueError:
+            return str(p)
+
+    def _file_problems(self, kept: dict) -> list[str]:
+        """Compare the files under the archive and quarantine folders with what the store says it keeps."""
+        out = []
+        shown = self._shown
+        wanted = {}
+        for path, (recording_id, status, _hash, has_sidecar) in kept.items():
+            p = Path(path)
+            wanted[p] = (recording_id, status)
+            if not p.is_file():
+                out.append(f"recording {recording_id} ({status}): its kept copy {shown(p)} is missing")
+            elif status == "analysed" and has_sidecar and not p.with_suffix(".json").is_file():
+                out.append(f"recording {recording_id} ({status}): its archived sidecar {shown(p.with_suffix('.json'))} "
+                           "is missing")
+        # A kept recording's sidecar copy lies beside it: the archive's as <hash>.json, the quarantine's as
+        # <hash prefix>-<stem>.json.
+        stems = {p.with_suffix(".json") for p in wanted} | {
+            p.with_name(p.name.split("-", 1)[0]) for p in wanted if p.parent == self.quarantine_dir}
+        for folder in (self.archive_dir, self.quarantine_dir):
+            if not folder.is_dir():
+                continue
+            for p in sorted(folder.rglob("*")):
+                if p.is_dir():
+                    continue
+                if p.name.startswith(".") and p.name.endswith(".tmp"):
+                    out.append(f"{shown(p)}: a temporary copy left by a stopped worker (the next worker removes it)")
+                elif p in wanted:
+                    continue
+                elif p.suffix == ".json" and (p in stems or p.with_name(p.name.split("-", 1)[0]) in stems):
+                    continue
+                else:
+                    out.append(f"{shown(p)}: no recording in the store points to this file (an orphan)")
+        return out
 
 
 @contextlib.contextmanager

@@ -104,6 +104,9 @@ actuations = Table(
     Column("recorded_at_text", String(64), nullable=False),  # the sidecar's ISO text with its offset
     Column("passed_qc", Boolean, nullable=False),
     Column("marker_source", Text),
+    Column("profile_version", Integer),  # the device profile the analysis used: its version ...
+    Column("profile_sha256", String(64)),  # ... and the SHA-256 of its file
+    Column("qc_sha256", String(64)),  # checksum of the recording's QC results and QC flags (analysis.store.integrity)
     Index("ix_actuations_profile_time", "profile", "recorded_at"),
     Index("ix_actuations_lot", "lot_id", "recorded_at"),
     Index("ix_actuations_rig", "rig_id", "recorded_at"),
@@ -165,6 +168,9 @@ reference_models = Table(
     Column("created_at", DateTime, nullable=False),
     Column("model_json", Text, nullable=False),  # analysis.monitor's model file, verbatim
     Column("model_npz", LargeBinary, nullable=False),  # its arrays file, verbatim
+    Column("profile_version", Integer),  # the device profile it was fitted with
+    Column("profile_sha256", String(64)),
+    Column("content_sha256", String(64)),  # checksum of the row (analysis.store.integrity)
     UniqueConstraint("profile", "event", "version", name="uq_models_version"),
     Index("ix_models_status", "profile", "event", "status"),
 )
@@ -189,6 +195,7 @@ trajectories = Table(
     Column("event_spe_ratio", Float),
     Column("slices_outside", Integer),
     Column("flagged", Boolean, nullable=False),
+    Column("flags_sha256", String(64)),  # checksum of these statistics and the flags they raised
     UniqueConstraint("actuation_id", "event", "model_id", name="uq_trajectories"),
     Index("ix_trajectories_model", "model_id", "actuation_id"),
 )

@@ -14,8 +14,9 @@ from datetime import UTC, timedelta
 from sqlalchemy import and_, bindparam, func, select
 from sqlalchemy.dialects import postgresql, sqlite
 
-from .codec import f32, f64, num
+from .codec import f32, f64, num, text
 from .errors import StoreError
+from .integrity import flags_digest, model_digest, qc_digest
 from .schema import (
     actuations,
     audit_log,
@@ -51,6 +52,7 @@ def _insert_ignore(conn, table, values: dict) -> int | None:
 def claim(conn, content_hash, original_name, size_bytes, *, worker, claim_timeout_s) -> Claim:
     """Register a recording by its content hash and claim it for ``worker`` (see Claim)."""
     now = utc_now()
+    original_name = text(original_name)
     new_id = _insert_ignore(conn, recordings, dict(
         content_hash=content_hash, original_name=original_name, size_bytes=int(size_bytes), received_at=now,
         status="claimed", claimed_by=worker, claimed_at=now,
@@ -81,6 +83,7 @@ def reopen_quarantined(conn, recording_id, *, worker, sidecar_text) -> bool:
     quarantined (any more)."""
     row = conn.execute(select(recordings.c.status, recordings.c.sidecar_json, recordings.c.error)
                        .where(recordings.c.id == recording_id)).first()
+    sidecar_text = text(sidecar_text)
     if row is None or row.status != "quarantined" or row.sidecar_json == sidecar_text or sidecar_text is None:
         return False
     done = conn.execute(
@@ -110,8 +113,9 @@ def release_claim(conn, recording_id, *, worker):
 
 
 def commit_quarantine(conn, recording_id, *, worker, reason, quarantine_path, sidecar_json=None) -> bool:
-    return _finish(conn, recording_id, worker, status="quarantined", error=reason, archive_path=quarantine_path,
-                   sidecar_json=sidecar_json)
+    """Mark a claimed recording as quarantined with its reason and where its copy is kept (None: not kept)."""
+    return _finish(conn, recording_id, worker, status="quarantined", error=text(reason),
+                   archive_path=text(quarantine_path), sidecar_json=text(sidecar_json))
 
 
 # ------------------------------------------------------------------------------------------------- identifiers
@@ -157,12 +161,21 @@ def commit_analyses(conn, cache, items: list[Analysed], *, worker) -> list[int |
     now = utc_now()
     conn.execute(
         recordings.update().where(and_(recordings.c.id == bindparam("b_id"), recordings.c.claimed_by == worker)),
-        [dict(b_id=it.recording_id, status="analysed", error=None, archive_path=it.archive_path,
+        [dict(b_id=it.recording_id, status="analysed", error=None, archive_path=text(it.archive_path),
               sample_rate_hz=int(it.result.sample_rate_hz), channels=int(it.result.n_channels),
               duration_s=num(it.result.duration_s), profile=it.result.profile,
-              sidecar_json=json.dumps(it.result.sidecar.to_json(), ensure_ascii=False),
+              sidecar_json=text(json.dumps(it.result.sidecar.to_json(), ensure_ascii=False)),
               claimed_by=None, claimed_at=None, analysed_at=now) for it in keep],
     )
+    qc_of, qc_flags_of = {}, {}
+    for it in keep:  # each recording's QC result set, and its checksum, before anything is written
+        qc_of[it.recording_id] = [
+            dict(recording_id=it.recording_id, check_name=q.check, value=num(q.value), limit_value=num(q.limit),
+                 passed=bool(q.passed), detail=text(q.detail)) for q in it.result.qc]
+        qc_flags_of[it.recording_id] = [
+            dict(model_id=None, event=None, statistic=f"qc:{q.check}", value=num(q.value), limit_value=num(q.limit),
+                 reason=text(f"recording failed its {q.check} check: {q.detail}"), created_at=now)
+            for q in it.result.qc if not q.passed]
     act_rows = []
     for it in keep:
         sc, res = it.result.sidecar, it.result
@@ -174,7 +187,10 @@ def commit_analyses(conn, cache, items: list[Analysed], *, worker) -> list[int |
             recording_id=it.recording_id, profile=res.profile, site_id=site_id, rig_id=rig_id, lot_id=lot_id,
             unit_id=unit_id, actuation=int(sc.actuation), recorded_at=_utc_naive(sc.recorded_at),
             recorded_at_text=sc.recorded_at.isoformat(), passed_qc=bool(res.passed_qc),
-            marker_source=res.marker_source,
+            marker_source=res.marker_source, profile_version=getattr(res, "profile_version", None),
+            profile_sha256=getattr(res, "profile_sha256", None) or None,
+            qc_sha256=qc_digest(it.recording_id, bool(res.passed_qc), qc_of[it.recording_id],
+                                qc_flags_of[it.recording_id]),
         ))
     act_ids = list(conn.execute(
         actuations.insert().returning(actuations.c.id, sort_by_parameter_order=True), act_rows).scalars())
@@ -182,14 +198,8 @@ def commit_analyses(conn, cache, items: list[Analysed], *, worker) -> list[int |
     by_model: dict = {}
     for it, actuation_id in zip(keep, act_ids):
         res = it.result
-        for q in res.qc:
-            qc_rows.append(dict(recording_id=it.recording_id, check_name=q.check, value=num(q.value),
-                                limit_value=num(q.limit), passed=bool(q.passed), detail=q.detail))
-            if not q.passed:
-                flag_rows.append(dict(
-                    actuation_id=actuation_id, model_id=None, event=None, statistic=f"qc:{q.check}",
-                    value=num(q.value), limit_value=num(q.limit),
-                    reason=f"recording failed its {q.check} check: {q.detail}", created_at=now))
+        qc_rows += qc_of[it.recording_id]
+        flag_rows += [dict(f, actuation_id=actuation_id) for f in qc_flags_of[it.recording_id]]
         for ev in res.events:
             ev_rows.append(_event_row(actuation_id, ev, res.features.get(ev.name)))
         for event, (model_id, scored) in it.scored.items():
@@ -209,7 +219,7 @@ def _event_row(actuation_id, ev, f) -> dict:
     row = dict(
         actuation_id=actuation_id, name=ev.name, found=bool(ev.found), onset_s=num(ev.onset_s),
         end_s=num(ev.end_s), duration_s=num(ev.duration_s), peak_dbfs=num(ev.peak_dbfs),
-        latency_s=num(ev.latency_s), method=ev.method, reason=ev.reason or None,
+        latency_s=num(ev.latency_s), method=ev.method, reason=text(ev.reason) or None,
         dominant_hz=None, centroid_hz=None, band_energy_db=None, padded_slices=None, level_reference=None,
         n_slices=None, n_bands=None, levels_f32=None, slice_times_f64=None, band_centres_f64=None,
     )
@@ -228,9 +238,12 @@ def insert_scores(conn, model_id, event, items) -> None:
     now = utc_now()
     traj, fl = [], []
     for actuation_id, scored in items:
-        traj.append(dict(scored.trajectory, actuation_id=actuation_id, event=event, model_id=model_id))
-        fl.extend(dict(f, actuation_id=actuation_id, event=event, model_id=model_id, created_at=now)
-                  for f in scored.flags)
+        row = dict(scored.trajectory, actuation_id=actuation_id, event=event, model_id=model_id)
+        rows = [dict(f, reason=text(f["reason"]), actuation_id=actuation_id, event=event, model_id=model_id,
+                     created_at=now) for f in scored.flags]
+        row["flags_sha256"] = flags_digest(row, rows)
+        traj.append(row)
+        fl.extend(rows)
     if traj:
         conn.execute(trajectories.insert(), traj)
     if fl:
@@ -248,12 +261,15 @@ def insert_model(conn, *, profile, event, model_json: str, model_npz: bytes, met
         conn.execute(reference_models.update().where(and_(
             reference_models.c.profile == profile, reference_models.c.event == event,
             reference_models.c.status == "active")).values(status="retired"))
-    model_id = conn.execute(reference_models.insert().values(
-        profile=profile, event=event, version=version, status="active" if activate else "retired",
-        reference_lots=json.dumps(list(meta.get("reference_lots", []))),
+    row = dict(
+        profile=profile, event=event, version=version, reference_lots=json.dumps(list(meta.get("reference_lots", []))),
         parameters=json.dumps(model.get_params()), n_recordings=int(meta.get("n_recordings", 0)),
         n_components=int(model.n_components_), t2_limit=num(model.t2_limit_), spe_limit=num(model.spe_limit_),
-        created_by=created_by, created_at=now, model_json=model_json, model_npz=model_npz,
+        created_by=text(created_by), created_at=now, model_json=model_json, model_npz=bytes(model_npz),
+        profile_version=meta.get("profile_version"), profile_sha256=meta.get("profile_sha256") or None,
+    )
+    model_id = conn.execute(reference_models.insert().values(
+        status="active" if activate else "retired", content_sha256=model_digest(row), **row,
     ).returning(reference_models.c.id)).scalar_one()
     audit(conn, person=created_by, action="reference.build", target=f"model {model_id}",
           detail={"profile": profile, "event": event, "version": version, "active": activate,
@@ -284,7 +300,7 @@ def add_verdict(conn, flag_id, *, person, verdict, note, where) -> int:
     if conn.execute(select(flags.c.id).where(flags.c.id == flag_id)).first() is None:
         raise StoreError(f"{where}: no flag with id {flag_id}")
     vid = conn.execute(verdicts.insert().values(
-        flag_id=flag_id, person=person, verdict=verdict, note=note or None, created_at=utc_now(),
+        flag_id=flag_id, person=text(person), verdict=verdict, note=text(note) or None, created_at=utc_now(),
     ).returning(verdicts.c.id)).scalar_one()
     audit(conn, person=person, action="verdict.add", target=f"flag {flag_id}",
           detail={"verdict": verdict, "note": note or ""})
@@ -293,6 +309,6 @@ def add_verdict(conn, flag_id, *, person, verdict, note, where) -> int:
 
 def audit(conn, *, person, action, target="", detail=None):
     conn.execute(audit_log.insert().values(
-        at=utc_now(), person=person, action=action, target=target,
-        detail=json.dumps(detail or {}, ensure_ascii=False, default=str),
+        at=utc_now(), person=text(person), action=action, target=text(target),
+        detail=text(json.dumps(detail or {}, ensure_ascii=False, default=str)),
     ))

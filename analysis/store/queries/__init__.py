@@ -4,7 +4,7 @@ through these (and the ``Store`` methods that wrap the common ones); none of the
 
 - records:    schema_version, recordings, quarantine, recent_quarantine, actuations, export_actuations, flags,
               actuation_detail, band_levels, event_levels, trajectory, trajectories, unscored, latest_per_rig,
-              lot_actuations, lot_names, audit_log, check_integrity
+              lot_actuations, lot_names, audit_log, check_integrity, kept_files
 - models:     models, load_model, active_models, reference_lots, typical_reference_actuation
 - aggregates: choices, lot_points, actuation_cloud, rig_summary, reference_summary, rig_histogram,
               triage_evidence, flag_summary, fingerprint
@@ -34,6 +34,7 @@ from .records import (
     event_levels,
     export_actuations,
     flags,
+    kept_files,
     latest_per_rig,
     lot_actuations,
     lot_names,
@@ -49,7 +50,7 @@ from .records import (
 __all__ = [
     "schema_version", "recordings", "quarantine", "recent_quarantine", "actuations", "export_actuations", "flags",
     "actuation_detail", "band_levels", "event_levels", "trajectory", "trajectories", "unscored", "latest_per_rig",
-    "lot_actuations", "lot_names", "audit_log", "check_integrity",
+    "lot_actuations", "lot_names", "audit_log", "check_integrity", "kept_files",
     "models", "load_model", "active_models", "reference_lots", "typical_reference_actuation",
     "choices", "lot_points", "actuation_cloud", "rig_summary", "reference_summary", "rig_histogram",
     "triage_evidence", "flag_summary", "fingerprint",

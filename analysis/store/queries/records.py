@@ -12,7 +12,7 @@ import pandas as pd
 from sqlalchemy import and_, exists, func, select
 
 from .. import schema as db
-from ..codec import event_arrays, from_f32
+from ..codec import event_arrays, from_f32, text
 from ..errors import StoreError
 from ..types import Trajectory
 from ._base import active_model_ids, counted_flag, df, model_flag, placed_full, text_by_id
@@ -55,13 +55,13 @@ def quarantine(conn) -> pd.DataFrame:
     ).where(r.c.status == "quarantined").order_by(r.c.id))
 
 
-def _sidecar_field(text, key) -> str:
+def _sidecar_field(stored, key) -> str:
     """One field of a stored sidecar text, "" when the text is not a JSON object or lacks it."""
     try:
-        obj = json.loads(text) if text else None
+        obj = json.loads(stored) if stored else None
     except (TypeError, ValueError, RecursionError):
         return ""
-    return str(obj.get(key, "")) if isinstance(obj, dict) else ""
+    return text(str(obj.get(key, ""))) if isinstance(obj, dict) else ""  # text(): no lone surrogate comes back
 
 
 def recent_quarantine(conn, *, limit: int = 20) -> pd.DataFrame:
@@ -170,13 +170,15 @@ def export_actuations(conn) -> pd.DataFrame:
 
 
 def actuation_detail(conn, actuation_id: int) -> dict | None:
-    """Everything the drill-down shows about one actuation except arrays: metadata (id, profile, actuation,
+    """Everything the drill-down shows about one actuation except arrays: metadata (id, profile, profile_version,
+    profile_sha256 (of the profile file the analysis used; None for analyses before they were recorded), actuation,
     recorded_at_text, passed_qc, marker_source, site, rig, lot, unit, recording_id, original_name, archive_path,
     sample_rate_hz, channels, duration_s, content_hash), ``sidecar`` (dict), ``qc`` and ``events`` (DataFrames,
     without band levels). None when there is no such actuation."""
     a, r = db.actuations, db.recordings
     row = conn.execute(
-        select(a.c.id, a.c.profile, a.c.actuation, a.c.recorded_at_text, a.c.passed_qc, a.c.marker_source,
+        select(a.c.id, a.c.profile, a.c.profile_version, a.c.profile_sha256, a.c.actuation, a.c.recorded_at_text,
+               a.c.passed_qc, a.c.marker_source,
                db.sites.c.name.label("site"), db.rigs.c.name.label("rig"), db.lots.c.name.label("lot"),
                db.units.c.name.label("unit"), r.c.id.label("recording_id"), r.c.original_name, r.c.archive_path,
                r.c.sample_rate_hz, r.c.channels, r.c.duration_s, r.c.sidecar_json, r.c.content_hash)
@@ -389,6 +391,17 @@ def lot_names(conn, profile: str | None = None) -> list[str]:
 def audit_log(conn) -> pd.DataFrame:
     """The audit log, oldest first."""
     return df(conn, select(db.audit_log).order_by(db.audit_log.c.id))
+
+
+def kept_files(conn) -> dict:
+    """{path: (recording_id, status, content_hash, has_sidecar)} of every copy the store keeps (archived
+    originals, quarantined files); has_sidecar: the store holds the recording's sidecar text, so its copy was
+    kept beside the recording."""
+    r = db.recordings
+    return {row.archive_path: (row.id, row.status, row.content_hash, row.sidecar_json is not None)
+            for row in conn.execute(select(r.c.id, r.c.status, r.c.archive_path, r.c.content_hash,
+                                           r.c.sidecar_json.is_not(None).label("sidecar_json"))
+                                    .where(r.c.archive_path.is_not(None)))}
 
 
 def check_integrity(conn) -> list[str]:

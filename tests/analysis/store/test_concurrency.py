@@ -95,7 +95,9 @@ def test_a_worker_killed_mid_way_leaves_no_half_recording_and_a_restart_finishes
     try:
         for n_done in (4, 14):
             _kill_after(_worker(inbox, store_url, files, "--jobs", "1"), store, n_done)
-            assert store.check_integrity() == []  # whole recordings only, even right after the kill
+            # Whole recordings only, even right after the kill. A copy the killed worker had put in the archive
+            # before its commit may lie there with no row yet: the restart commits it (checked in _check_outcome).
+            assert store.check_integrity(files=False) == []
         # The killed workers' claims are stale at once with a zero timeout: the last run takes them up.
         proc = _worker(inbox, store_url, files, "--jobs", "2", "--claim-timeout-s", "0")
         out, err = proc.communicate(timeout=TIMEOUT_S)

@@ -120,12 +120,52 @@ def test_the_previous_releases_store_is_upgraded_and_keeps_its_contents(tmp_path
         engine.dispose()
 
 
+
+def test_the_upgrade_fills_the_checksums_of_the_previous_releases_rows(tmp_path):
+    """Revision 0002 computed a checksum for every model, QC result set and flag set already stored; the
+    profile a previous analysis used is not known, so its columns stay empty."""
+    path = _v1_copy(tmp_path)
+    checksummed = {"actuations": "qc_sha256", "reference_models": "content_sha256", "trajectories": "flags_sha256"}
+    with Store.open(path, create=False) as store:
+        # files=False: the fixture's archive paths name the folder it was made in, not this one
+        assert store.check_integrity(files=False) == []
+        with store.read() as conn:
+            counts = {t: tuple(conn.exec_driver_sql(f"SELECT count(*), count({c}) FROM {t}").one())
+                      for t, c in checksummed.items()}
+            sums = {t: conn.exec_driver_sql(f"SELECT {c} FROM {t}").scalars().all() for t, c in checksummed.items()}
+            profiles = {t: tuple(conn.exec_driver_sql(
+                f"SELECT count(profile_version), count(profile_sha256) FROM {t}").one())
+                for t in ("actuations", "reference_models")}
+    assert counts["actuations"] == (38, 38)  # the 38 rows of the fixture's export
+    assert counts["reference_models"] == (2, 2)
+    assert counts["trajectories"][0] > 0 and counts["trajectories"][0] == counts["trajectories"][1]
+    for values in sums.values():
+        assert all(re.fullmatch(r"[0-9a-f]{64}", v) for v in values)
+        assert len(set(values)) == len(values)  # each covers its own row's content
+    assert profiles == {"actuations": (0, 0), "reference_models": (0, 0)}
+
+    # The check is not vacuous on this store: a row changed after the upgrade is found.
+    engine = create_engine(f"sqlite:///{path}")
+    try:
+        with engine.begin() as conn:
+            tid, aid, event, model_id = conn.exec_driver_sql(
+                "SELECT id, actuation_id, event, model_id FROM trajectories ORDER BY id LIMIT 1").one()
+            conn.exec_driver_sql(f"UPDATE trajectories SET n_slices = n_slices + 1 WHERE id = {tid}")
+    finally:
+        engine.dispose()
+    with Store.open(path, create=False) as store:
+        assert store.check_integrity(files=False) == [
+            f"actuation {aid}, event {event!r} under model {model_id}: statistics and their flags: content differs "
+            "from its checksum (changed after it was written)"]
+
 def test_a_store_from_before_alembic_is_stamped_then_upgraded(store_url, tmp_path):
     """A version-1 store without alembic_version (how the previous release left it), on both backends."""
-    Store.open(store_url, files_dir=tmp_path).close()
+    from alembic import command
+
     engine = create_engine(store_url)
     try:
         with engine.begin() as conn:
+            command.upgrade(migrate.alembic_config(connection=conn), migrate.BASELINE)  # the schema of version 1
             conn.exec_driver_sql("DROP TABLE alembic_version")
             conn.exec_driver_sql("UPDATE store_info SET value = '1' WHERE key = 'schema_version'")
         with engine.begin() as conn:
