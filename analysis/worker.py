@@ -22,10 +22,10 @@ from multiprocessing import get_context
 from pathlib import Path
 
 from .errors import AnalysisError
-from .io import is_recording, sidecar_path
+from .io import AUDIO_SUFFIXES, is_recording, printable_name, sidecar_path
 
 __all__ = ["IngestSummary", "ingest_paths", "run_worker", "process_files", "find_inbox_files", "content_hash",
-           "make_pool", "jobs_or_cores", "DEFAULT_CLAIM_TIMEOUT_S"]
+           "make_pool", "jobs_or_cores", "outside_reason", "sweep_temporary", "DEFAULT_CLAIM_TIMEOUT_S"]
 
 #: A claim older than this is taken to belong to a dead worker (analysis of one recording takes well under 1 s).
 DEFAULT_CLAIM_TIMEOUT_S = 300.0
@@ -74,11 +74,16 @@ def content_hash(path: Path) -> tuple[str, int]:
 
 
 def find_inbox_files(inbox: Path, *, settle_s: float = 0.0) -> list[Path]:
-    """Recordings in the inbox tree (analysis.io.is_recording), by name; files modified in the last ``settle_s``
+    """Recordings in the inbox tree (analysis.io.is_recording), by name, and the symbolic links among them (which
+    the worker refuses: it takes in nothing from outside the inbox); files modified in the last ``settle_s``
     seconds are left for later."""
     now = time.time()
     out = []
     for p in sorted(inbox.rglob("*")):
+        if p.is_symlink():
+            if not p.name.startswith(".") and (p.suffix.lower() in AUDIO_SUFFIXES or p.is_dir()):
+                out.append(p)  # a recording or a folder of them by link: refused later, with its reason, unread
+            continue
         if not is_recording(p):
             continue
         if settle_s > 0:
@@ -91,6 +96,21 @@ def find_inbox_files(inbox: Path, *, settle_s: float = 0.0) -> list[Path]:
     return out
 
 
+def outside_reason(path: Path, root: Path | None) -> str | None:
+    """Why a delivered file is refused without being read (a symbolic link, or a real path outside the inbox),
+    or None. (A sidecar that is a link is refused by analysis.io.read_sidecar, unread; the recording beside it is
+    then quarantined like any other.)"""
+    if path.is_symlink():
+        what = "a symbolic link to a folder" if path.is_dir() else "a symbolic link"
+        return f"is {what}; only files delivered into the inbox are taken in (the link was not followed)"
+    if root is not None:
+        try:
+            path.resolve().relative_to(Path(root).resolve())
+        except ValueError:
+            return "lies outside the inbox (a folder on its way is a symbolic link); it was not read"
+    return None
+
+
 def _analyse_task(path: str, profile_dirs: tuple[str, ...]):
     """Runs in a pool process: (result, None) or (None, reason). Never raises, so one bad file stops nothing."""
     from .pipeline import analyse_file
@@ -98,9 +118,11 @@ def _analyse_task(path: str, profile_dirs: tuple[str, ...]):
     try:
         return analyse_file(path, profile_dirs=profile_dirs), None
     except AnalysisError as exc:
-        return None, str(exc)
+        text = str(exc)
+        return None, text if text.startswith(path) else f"{path}: {text}"  # every reason names its file
     except Exception as exc:  # a bug must not stop the worker: the file goes to quarantine with the error
-        return None, f"{path}: unexpected error while analysing: {type(exc).__name__}: {exc}"
+        return None, (f"{path}: could not be analysed because of an internal error ({type(exc).__name__}: {exc}); "
+                      "the file is kept in quarantine: tell the method owner")
 
 
 def _place(src: Path, dest: Path, *, content_addressed: bool = True) -> None:
@@ -110,14 +132,14 @@ def _place(src: Path, dest: Path, *, content_addressed: bool = True) -> None:
     if content_addressed and dest.exists() and dest.stat().st_size == src.stat().st_size:
         return
     tmp = dest.with_name(f".{dest.name}.{os.getpid()}.tmp")
-    shutil.copyfile(src, tmp)
+    shutil.copyfile(src, tmp, follow_symlinks=False)
     os.replace(tmp, dest)
 
 
 def _remove_source(path: Path, root: Path | None) -> None:
     for p in (path, sidecar_path(path)):
         try:
-            p.unlink()
+            p.unlink()  # a symbolic link is removed itself, never its target
         except FileNotFoundError:
             pass
     if root is None:
@@ -129,6 +151,34 @@ def _remove_source(path: Path, root: Path | None) -> None:
         except OSError:
             break
         parent = parent.parent
+
+
+def _public(reason: str, path: Path, name: str, root: Path | None) -> str:
+    """A reason as it is stored and shown: the delivered name instead of the worker's own path to the file (no
+    server path in the store), with bytes that are not UTF-8 and control characters escaped."""
+    text = str(reason)
+    side = sidecar_path(path)
+    side_name = name[: -len(path.suffix)] + ".json" if path.suffix and name.endswith(path.suffix) else side.name
+    for full, short in ((str(side), side_name), (str(path), name)):
+        text = text.replace(full, short)
+    if root is not None:
+        text = text.replace(str(root).rstrip("/") + "/", "")
+    return printable_name(text)
+
+
+def sweep_temporary(folder: Path, *, older_than_s: float) -> int:
+    """Remove the temporary copies (``.NAME.PID.tmp``) a killed worker left in ``folder``; returns how many."""
+    if not folder.is_dir():
+        return 0
+    now, n = time.time(), 0
+    for p in folder.rglob(".*.tmp"):
+        try:
+            if p.is_file() and not p.is_symlink() and now - p.stat().st_mtime > older_than_s:
+                p.unlink()
+                n += 1
+        except FileNotFoundError:
+            pass
+    return n
 
 
 class _Progress:
@@ -165,7 +215,9 @@ def process_files(
     None analyses in this process. ``jobs`` sizes the window of analyses in flight. ``remove_source``: delete each
     delivered file (and its sidecar) once its outcome is committed.
     Analysed recordings are committed in batches of up to ``batch_size`` (each recording whole; a batch waits at
-    most ``batch_wait_s`` for more), so the store sees few, larger transactions.
+    most ``batch_wait_s`` for more), so the store sees few, larger transactions. Whatever goes wrong with one
+    recording (a name that is not UTF-8, a sidecar the store cannot hold, a bug) sends that recording to
+    quarantine with its reason; the others go on. Only the store itself failing stops the pass (StoreError).
     """
     from .references import score_result
     from .store import Analysed, Claim, StoreError
@@ -180,24 +232,29 @@ def process_files(
 
     buffer: list = []  # (Analysed, path, name, hash): archived and scored, waiting for the next batch commit
     buffered_since = [0.0]
+    twins: list[Path] = []  # byte-identical copies of a file seen earlier in this pass: removed at its end
+    retried: set[int] = set()  # recordings taken out of quarantine in this pass
 
     def commit(entries) -> None:
         try:
             ids = store.commit_analyses([e[0] for e in entries], worker=worker_id)
-        except StoreError as exc:
-            if len(entries) > 1:  # find the recording the store refuses; the others go in
+        except Exception as exc:  # noqa: BLE001 - one recording the store refuses must not lose its batchmates
+            if len(entries) > 1:
                 for e in entries:
                     commit([e])
                 return
             item, path, name, h = entries[0]
-            to_quarantine(path, name, item.recording_id, h, f"{name}: analysed but could not be stored: {exc}")
+            why = exc if isinstance(exc, StoreError) else f"{type(exc).__name__}: {exc}"
+            to_quarantine(path, name, item.recording_id, h, f"{name}: analysed but could not be stored: {why}")
             return
-        for (item, path, name, _), actuation_id in zip(entries, ids):
+        for (item, path, name, h), actuation_id in zip(entries, ids):
             if actuation_id is None:
                 summary.lost += 1
                 bar.line(f"lost       {name}: another worker took over its claim")
                 continue
             summary.analysed += 1
+            if item.recording_id in retried:  # analysed now: its earlier quarantined copy is no one's
+                _drop_quarantine_copies(store.quarantine_dir, h)
             flagged = any(scored.flagged for _, scored in item.scored.values()) or not item.result.passed_qc
             bar.line(f"analysed   {name} -> actuation {actuation_id}"
                      + (" (flagged)" if flagged else "") + ("" if item.scored else " (no active model)"))
@@ -218,25 +275,33 @@ def process_files(
         result, reason = outcome
         h = claim_hash[path]
         if result is None:
-            to_quarantine(path, name, claim.recording_id, h, reason)
+            to_quarantine(path, name, claim.recording_id, h, _public(reason, path, name, inbox_root))
             return
         try:
             archive = store.archive_dir / h[:2] / (h + path.suffix.lower())
             _place(path, archive)
             side = sidecar_path(path)
-            if side.exists():
+            if side.exists() and not side.is_symlink():
                 _place(side, archive.with_suffix(".json"), content_addressed=False)
         except FileNotFoundError as exc:
             vanished(claim.recording_id, name, exc)
             return
+        except OSError as exc:
+            to_quarantine(path, name, claim.recording_id, h, f"{name}: could not be copied into the archive "
+                                                              f"({exc.strerror or exc})")
+            return
         try:
             if result.sidecar is None:
-                raise AnalysisError(f"{result.path}: no sidecar, so no site, rig, lot or unit to store")
+                raise AnalysisError(f"{name}: no sidecar, so no site, rig, lot or unit to store")
             if result.profile not in models:
                 models[result.profile] = store.active_models(result.profile)
             scored = score_result(result, models[result.profile])
-        except AnalysisError as exc:
-            to_quarantine(path, name, claim.recording_id, h, f"{name}: analysed but could not be scored: {exc}")
+        except StoreError:
+            raise
+        except Exception as exc:  # noqa: BLE001 - a model that cannot score this recording: quarantine, go on
+            why = exc if isinstance(exc, AnalysisError) else f"{type(exc).__name__}: {exc}"
+            to_quarantine(path, name, claim.recording_id, h,
+                          _public(f"{name}: analysed but could not be scored: {why}", path, name, inbox_root))
             return
         if not buffer:
             buffered_since[0] = time.monotonic()
@@ -244,28 +309,41 @@ def process_files(
         if len(buffer) >= batch_size or time.monotonic() - buffered_since[0] > batch_wait_s:
             flush()
 
-    def to_quarantine(path: Path, name: str, recording_id: int, h: str, reason: str) -> None:
-        """Keep the file as delivered (a hash prefix keeps equal names apart) and commit its reason."""
+    def to_quarantine(path: Path, name: str, recording_id: int, h: str, reason: str, *, keep: bool = True) -> None:
+        """Keep the file as delivered (a hash prefix keeps equal names apart; ``keep`` False: nothing is read,
+        for links) and commit its reason. No copy of it stays in the archive."""
         qdir = store.quarantine_dir
-        kept = qdir / f"{h[:12]}-{path.name}"
+        kept = qdir / f"{h[:12]}-{_safe_file_name(path.name)}"
         side = sidecar_path(path)
         sidecar_text = None
+        if recording_id in retried:  # quarantined again: only this delivery's copy is kept
+            _drop_quarantine_copies(qdir, h)
         try:
-            _place(path, kept)
-            if side.exists():
-                _place(side, qdir / f"{h[:12]}-{side.name}", content_addressed=False)
-                sidecar_text = side.read_text(encoding="utf-8", errors="replace")[:100_000]
+            if keep:
+                _place(path, kept)
+                if side.exists() and not side.is_symlink():
+                    _place(side, qdir / f"{h[:12]}-{_safe_file_name(side.name)}", content_addressed=False)
+                    with open(side, "rb") as f:
+                        sidecar_text = f.read(100_000).decode("utf-8", errors="replace")
         except FileNotFoundError as exc:
             vanished(recording_id, name, exc)
             return
-        if not store.commit_quarantine(recording_id, worker=worker_id, reason=reason, quarantine_path=str(kept),
-                                       sidecar_json=sidecar_text):
+        for copy in (store.archive_dir / h[:2] / (h + path.suffix.lower()),):
+            for p in (copy, copy.with_suffix(".json")):  # archived before it failed: no orphan stays behind
+                try:
+                    p.unlink()
+                except FileNotFoundError:
+                    pass
+        if not store.commit_quarantine(recording_id, worker=worker_id, reason=printable_name(reason),
+                                       quarantine_path=str(kept) if keep else None, sidecar_json=sidecar_text):
             summary.lost += 1
             return
         summary.quarantined += 1
         summary.errors.append((name, reason))
         bar.line(f"quarantined {name}: {reason}")
-        if remove_source:
+        # What was not kept is removed only when it is a link of the inbox's own: a file whose real path lies
+        # outside the inbox is someone else's and stays where it is.
+        if remove_source and (keep or path.is_symlink()):
             _remove_source(path, inbox_root)
 
     claim_hash: dict[Path, str] = {}
@@ -276,37 +354,87 @@ def process_files(
             done, _ = wait(pending, return_when=FIRST_COMPLETED)
             for fut in done:
                 p, n, c = pending.pop(fut)
-                finish(p, n, c, fut.result())
+                try:
+                    outcome = fut.result()
+                except Exception as exc:  # noqa: BLE001 - a pool process that died on this file
+                    outcome = (None, f"{p}: could not be analysed: the analysis process failed "
+                                     f"({type(exc).__name__}: {exc})")
+                guarded(p, n, c, lambda p=p, n=n, c=c, o=outcome: finish(p, n, c, o))
                 claim_hash.pop(p, None)
                 bar.step()
 
+    def guarded(path: Path, name: str, claim, step) -> None:
+        """Run one recording's step; anything but the store failing sends that recording to quarantine."""
+        try:
+            step()
+        except StoreError:
+            raise
+        except Exception as exc:  # noqa: BLE001 - the worker never stops on one input
+            to_quarantine(path, name, claim.recording_id, claim_hash.get(path, "0" * 64),
+                          f"{name}: could not be taken in because of an internal error ({type(exc).__name__}: "
+                          f"{exc}); tell the method owner")
+
+    def claim_all(entries):
+        """Claims of (hash, name, size) entries, in one transaction; one at a time when that fails."""
+        try:
+            return store.claim_many(entries, worker=worker_id, claim_timeout_s=claim_timeout_s)
+        except StoreError:
+            if len(entries) == 1:
+                raise
+            return [claim_all([e])[0] for e in entries]
+
     pending: dict = {}
     window = max(2, 2 * jobs)
+    seen: dict[str, str] = {}  # content hash -> the name it was first seen under in this pass
     try:
         for chunk in _chunks(files, batch_size):
-            hashed = []
+            hashed, refused = [], []
             for path, name in chunk:
-                path = Path(path)
+                path, name = Path(path), printable_name(name)
+                why = outside_reason(path, inbox_root)
+                if why is not None:
+                    link = os.readlink(path) if path.is_symlink() else str(path)  # the link itself, not its target
+                    marker = hashlib.sha256(f"not taken in:{name}:{printable_name(link)}".encode()).hexdigest()
+                    refused.append((path, name, marker, f"{name}: {why}"))
+                    continue
                 try:
                     h, size = content_hash(path)
                 except FileNotFoundError:
                     summary.vanished += 1
                     continue
+                if h in seen:
+                    summary.duplicates += 1
+                    bar.line(f"duplicate  {name}: same content as {seen[h]}, delivered in the same pass")
+                    if remove_source:
+                        twins.append(path)
+                    bar.step()
+                    continue
+                seen[h] = name
                 hashed.append((path, name, h, size))
-            claims = store.claim_many([(h, name, size) for _, name, h, size in hashed], worker=worker_id,
-                                      claim_timeout_s=claim_timeout_s)
+            for path, name, marker, why in refused:
+                c = claim_all([(marker, name, 0)])[0]
+                if c.kind in ("new", "retry"):
+                    claim_hash[path] = marker
+                    to_quarantine(path, name, c.recording_id, marker, why, keep=False)
+                    claim_hash.pop(path, None)
+                elif remove_source and path.is_symlink():
+                    _remove_source(path, inbox_root)  # refused before; the link itself goes
+                bar.step()
+            claims = claim_all([(h, name, size) for _, name, h, size in hashed]) if hashed else []
             for (path, name, h, _), claim in zip(hashed, claims):
                 if claim.kind == "duplicate" and claim.status == "quarantined":
                     # Only a sidecar that is there now can be a corrected one: a sidecar that vanished meanwhile
                     # is another worker finishing this very file, not a new delivery.
                     side = sidecar_path(path)
                     try:
-                        text = side.read_text(encoding="utf-8", errors="replace")[:100_000]
+                        with open(side, "rb") as f:
+                            text = f.read(100_000).decode("utf-8", errors="replace")
                     except FileNotFoundError:
                         text = None
                     if text is not None and path.exists() and store.reopen_quarantined(
                             claim.recording_id, worker=worker_id, sidecar_text=text):
                         claim = Claim("retry", claim.recording_id, "claimed", name)
+                        retried.add(claim.recording_id)
                         bar.line(f"retry      {name}: was quarantined, delivered again with another sidecar")
                 if claim.kind == "duplicate":
                     summary.duplicates += 1
@@ -322,7 +450,8 @@ def process_files(
                     continue
                 claim_hash[path] = h
                 if pool is None:
-                    finish(path, name, claim, _analyse_task(str(path), dirs))
+                    outcome = _analyse_task(str(path), dirs)
+                    guarded(path, name, claim, lambda p=path, n=name, c=claim, o=outcome: finish(p, n, c, o))
                     claim_hash.pop(path, None)
                     bar.step()
                     continue
@@ -330,6 +459,8 @@ def process_files(
                 drain(window)
         drain(1)
         flush()
+        for path in twins:
+            _remove_source(path, inbox_root)
     except KeyboardInterrupt:
         flush()  # what is analysed is kept; claims of the rest are taken up again after the claim timeout
         raise
@@ -337,6 +468,22 @@ def process_files(
         bar.close()
     summary.elapsed_s = time.perf_counter() - t0
     return summary
+
+
+def _drop_quarantine_copies(qdir: Path, h: str) -> None:
+    """Remove the quarantined copies of the recording with content hash ``h`` (named ``<hash prefix>-...``)."""
+    if qdir.is_dir():
+        for p in qdir.glob(f"{h[:12]}-*"):
+            try:
+                p.unlink()
+            except FileNotFoundError:
+                pass
+
+
+def _safe_file_name(name: str) -> str:
+    """A file name that any file system takes: bytes that are not UTF-8 and control characters become '_'."""
+    out = printable_name(name)
+    return "".join(c if c.isprintable() and c not in "\\/" else "_" for c in out)[:200] or "_"
 
 
 def _chunks(items, n: int):
@@ -391,12 +538,20 @@ def ingest_paths(paths: Iterable[str | Path], store_url=None, jobs: int | None =
     pool = make_pool(jobs) if jobs > 1 and len(files) > 1 else None
     try:
         with Store.open(store_url, files_dir=files_dir) as store:
+            _sweep(store, claim_timeout_s, log)
             return process_files(store, files, jobs=jobs, pool=pool, remove_source=False,
                                  claim_timeout_s=claim_timeout_s, profile_dirs=profile_dirs, log=log,
                                  progress=progress, total=len(files))
     finally:
         if pool is not None:
             pool.shutdown(cancel_futures=True)
+
+
+def _sweep(store, older_than_s: float, log) -> None:
+    """Temporary copies older than a claim are a killed worker's: remove them (a live copy is seconds old)."""
+    n = sum(sweep_temporary(d, older_than_s=older_than_s) for d in (store.archive_dir, store.quarantine_dir))
+    if n:
+        log(f"removed {n} temporary file(s) a stopped worker left in the archive or quarantine")
 
 
 def jobs_or_cores(jobs: int | None) -> int:
@@ -421,6 +576,7 @@ def run_worker(inbox: str | Path, store_url=None, *, once: bool = False, jobs: i
     worker_id = f"{socket.gethostname()}:{os.getpid()}"
     pool = make_pool(jobs) if jobs > 1 else None
     with Store.open(store_url, files_dir=files_dir) as store:
+        _sweep(store, claim_timeout_s, log)
         try:
             while True:
                 files = find_inbox_files(inbox, settle_s=settle)

@@ -79,7 +79,7 @@ def _bad_inbox(inbox):
     for i, suffix in enumerate([".flac", ".wav"]):
         (inbox / f"noise{i}{suffix}").write_bytes(np.random.default_rng(3 + i).bytes(20_000))
         (inbox / f"noise{i}.json").write_text(json.dumps(sidecar_dict()))
-        cases[f"noise{i}{suffix}"] = "not a readable audio file"
+        cases[f"noise{i}{suffix}"] = "not a recognised audio file"
     mic, marker = synth_actuation()
     data = np.column_stack([mic, marker])
     data[1000, 0], data[2000, 0] = np.nan, np.inf
@@ -142,8 +142,18 @@ def test_ingest_command_and_a_missing_inbox(sqlite_url, tmp_path):
 
 
 def test_a_recording_the_store_refuses_is_quarantined_and_the_batch_goes_in(sqlite_url, tmp_path):
+    from sqlalchemy import create_engine, text
+
     inbox = tmp_path / "inbox"
-    write_recording(inbox, "huge", sidecar=sidecar_dict(actuation=10**20))  # too large for a 64-bit integer
+    # Sidecars are checked on read, so no sidecar gets a value the database refuses: a trigger makes the database
+    # refuse one lot, as a constraint a site adds (or a full disk) would.
+    Store.open(sqlite_url).close()
+    engine = create_engine(sqlite_url)
+    with engine.begin() as conn:
+        conn.execute(text("CREATE TRIGGER refuse_lot BEFORE INSERT ON lots WHEN NEW.name = 'LREFUSED' "
+                          "BEGIN SELECT RAISE(ABORT, 'lot refused by a site rule'); END"))
+    engine.dispose()
+    write_recording(inbox, "huge", sidecar=sidecar_dict(lot="LREFUSED"))
     for i in range(3):
         write_recording(inbox, f"ok{i}", seed=40 + i)
     s = run_worker(inbox, sqlite_url, once=True, jobs=1)
@@ -153,6 +163,7 @@ def test_a_recording_the_store_refuses_is_quarantined_and_the_batch_goes_in(sqli
         assert store.check_integrity() == []
     assert list(q["file"]) == ["huge.flac"]
     assert q.loc[0, "reason"].startswith("huge.flac: analysed but could not be stored: ")
+    assert "lot refused by a site rule" in q.loc[0, "reason"]
 
 
 def test_without_once_the_worker_polls_until_interrupted(sqlite_url, tmp_path):
