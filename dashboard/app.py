@@ -10,17 +10,20 @@ opens the same view with the same selections.
 from __future__ import annotations
 
 import os
+import re
 import secrets
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import diskcache
+import flask
 from dash import Dash, DiskcacheManager, Input, Output, dcc, html, no_update
 
 from analysis.cautions import CAUTIONS
 from analysis.store import Store
 
 from . import audio as audio_route
+from .safety import MAX_ID, guarded
 from .urlstate import parse_query
 from .views import VIEWS, view_for_path
 
@@ -86,8 +89,61 @@ def create_app(store_url=None, *, cache_dir=None, meeting: bool = False, refresh
     for view in VIEWS.values():
         view.register(app, ctx)
     audio_route.register(app.server, ctx)
+    _protect(app, ctx)
     app.harken = ctx  # for tests and the bench: the views' context
     return app
+
+
+def content_security_policy(app: Dash) -> str:
+    """The Content-Security-Policy every response carries: scripts from this server and Dash's own inline
+    scripts (by hash; they hold the clientside callbacks), 'unsafe-eval' because Plotly's WebGL traces compile
+    their shaders' code at run time, inline styles because Plotly writes its own style elements; audio, images
+    and fonts from this server (data: and blob: URLs for Plotly's icons and exports); no framing by any page."""
+    scripts = " ".join(["'self'", "'unsafe-eval'", *app.csp_hashes()])
+    return "; ".join([
+        "default-src 'self'", f"script-src {scripts}", "style-src 'self' 'unsafe-inline'",
+        "img-src 'self' data: blob:", "font-src 'self' data:", "media-src 'self' blob:", "connect-src 'self'",
+        "worker-src 'self' blob:", "object-src 'none'", "base-uri 'self'", "form-action 'self'",
+        "frame-ancestors 'none'",
+    ])
+
+
+_ACTUATION_PAGE = re.compile(r"^/actuation/(\d+)/?$")
+
+
+def _protect(app: Dash, ctx: AppContext) -> None:
+    """Security headers on every response, and a real 404 for an actuation page of an id the store has not."""
+    server = app.server
+    policy: list[str] = []
+
+    @server.before_request
+    def _unknown_actuation_page():
+        m = _ACTUATION_PAGE.match(flask.request.path)
+        if m is None:
+            return None
+        n = int(m.group(1))
+        if n > MAX_ID or not _actuation_exists(ctx, n):
+            return flask.Response(f"No actuation {n if n <= MAX_ID else '(id out of range)'} in this store.\n",
+                                  status=404, mimetype="text/plain")
+        return None
+
+    @server.after_request
+    def _headers(response):
+        if not policy:  # hashes of the inline scripts, once every callback is registered
+            policy.append(content_security_policy(app))
+        h = response.headers
+        h.setdefault("Content-Security-Policy", policy[0])
+        h.setdefault("X-Content-Type-Options", "nosniff")
+        h.setdefault("Referrer-Policy", "same-origin")
+        h.setdefault("X-Frame-Options", "DENY")
+        return response
+
+
+def _actuation_exists(ctx: AppContext, actuation_id: int) -> bool:
+    from analysis.store import queries
+
+    with ctx.store.read() as conn:
+        return queries.actuation_detail(conn, actuation_id) is not None
 
 
 def _shell(ctx: AppContext):
@@ -113,6 +169,7 @@ def _shell(ctx: AppContext):
 
 def _register_shell(app: Dash, ctx: AppContext) -> None:
     @app.callback(Output("app-page", "children"), Input("app-url", "pathname"), Input("app-url", "search"))
+    @guarded("children")
     def route(pathname, search):
         view, path_args = view_for_path(pathname or "/")
         if view is None:

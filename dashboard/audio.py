@@ -17,6 +17,7 @@ from analysis.errors import AnalysisError
 from analysis.store import queries
 
 from .drill import EVENT_PAD_S, wav_bytes
+from .safety import MAX_ID
 
 __all__ = ["register", "audio_url", "wav_file"]
 
@@ -61,11 +62,17 @@ def register(server: flask.Flask, ctx) -> None:
     @server.route("/audio/<int:actuation_id>.wav")
     def harken_audio(actuation_id: int):
         event = flask.request.args.get("event") or None
+        if not 1 <= actuation_id <= MAX_ID:
+            flask.abort(404, description="no such actuation (the id is out of range)")
+        if event is not None and (len(event) > 200 or not event.isprintable()):
+            flask.abort(404, description="no such event")
         try:
             path = wav_file(ctx, actuation_id, event)
         except LookupError as exc:
             flask.abort(404, description=str(exc))
         except AnalysisError as exc:
-            flask.abort(410, description=f"the archived recording cannot be read: {exc}")
+            # the reason without the server's own path to the archived file
+            why = getattr(exc, "reason", None) or "it could not be decoded"
+            flask.abort(410, description=f"the archived recording of actuation {actuation_id} cannot be read: {why}")
         return flask.send_file(path, mimetype="audio/wav", conditional=True, max_age=3600,
                                download_name=f"actuation-{actuation_id}{'-' + event if event else ''}.wav")

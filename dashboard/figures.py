@@ -14,6 +14,8 @@ import pandas as pd
 import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
+from .labels import full, label, plain
+
 __all__ = [
     "PALETTE", "apply_look", "empty_figure", "lot_chart_figure", "rig_distribution_figure", "rig_rates_figure",
     "score_time_figure", "score_plane_figure", "slice_stats_figure", "waveform_figure", "spectrogram_figure",
@@ -48,7 +50,7 @@ def apply_look(fig: go.Figure, *, meeting: bool = False, title: str | None = Non
         colorway=c["series"],
     )
     if title:
-        fig.update_layout(title=dict(text=title, x=0.01, font=dict(size=c["font"] + 3)))
+        fig.update_layout(title=dict(text=plain(title), x=0.01, font=dict(size=c["font"] + 3)))
     if height:
         fig.update_layout(height=int(height * (1.35 if meeting else 1.0)))
     fig.update_xaxes(gridcolor=c["grid"], zerolinecolor=c["grid"], linecolor=c["muted"])
@@ -58,7 +60,7 @@ def apply_look(fig: go.Figure, *, meeting: bool = False, title: str | None = Non
 
 def empty_figure(message: str, *, meeting: bool = False) -> go.Figure:
     fig = go.Figure()
-    fig.add_annotation(text=message, showarrow=False, x=0.5, y=0.5, xref="paper", yref="paper",
+    fig.add_annotation(text=plain(message), showarrow=False, x=0.5, y=0.5, xref="paper", yref="paper",
                        font=dict(size=_c(meeting)["font"] + 2))
     fig.update_xaxes(visible=False)
     fig.update_yaxes(visible=False)
@@ -108,7 +110,7 @@ def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting:
                 marker=dict(color=colour, size=size, opacity=0.9 if flagged else 0.45,
                             symbol="x" if flagged else "circle"),
                 customdata=np.column_stack([np.full(len(sub), "actuation"), sub["actuation_id"].astype(str)]),
-                text=[f"actuation {a} · {r} · lot {lt}"
+                text=[f"actuation {a} · {full(r)} · lot {full(lt)}"
                       for a, r, lt in zip(sub["actuation_id"], sub["rig"], sub["lot"])],
                 hovertemplate="%{text}<br>%{y:.3g}<extra></extra>",
             ))
@@ -117,11 +119,11 @@ def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting:
         g = g[np.isfinite(g["value"].astype(float))]  # a cell whose actuations all failed QC has no value to draw
         x = g["lot"].map(pos).to_numpy(dtype=float) + offs[rig]
         fig.add_trace(go.Scatter(
-            x=x, y=g["value"].to_numpy(dtype=float), mode="lines+markers", name=str(rig),
+            x=x, y=g["value"].to_numpy(dtype=float), mode="lines+markers", name=label(rig),
             line=dict(width=c["line"], color=c["series"][k % len(c["series"])]),
             marker=dict(size=c["marker"] + 2, symbol=["diamond" if r else "circle" for r in g["reference"]]),
             customdata=np.column_stack([np.full(len(g), "lot"), g["lot"].astype(str), g["rig"].astype(str)]),
-            text=[f"lot {lt} on {rig}: {n} actuations, {nf} flagged{' (reference lot)' if ref else ''}"
+            text=[f"lot {full(lt)} on {full(rig)}: {n} actuations, {nf} flagged{' (reference lot)' if ref else ''}"
                   for lt, n, nf, ref in zip(g["lot"], g["n_all"], g["n_flagged"], g["reference"])],
             hovertemplate="%{text}<br>%{y:.3g}<extra></extra>",
         ))
@@ -143,7 +145,7 @@ def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting:
             shown = float(chart.to_display(yv))
             _level_line(fig, shown, -0.5, len(lot_order) - 0.5, f"{name} {shown:.3g}",
                         c["ref"] if name == "centre" else c["limit"], dash, c)
-    fig.update_xaxes(tickmode="array", tickvals=list(range(len(lot_order))), ticktext=lot_order,
+    fig.update_xaxes(tickmode="array", tickvals=list(range(len(lot_order))), ticktext=[label(v) for v in lot_order],
                      title="lot (in time order)")
     fig.update_yaxes(title=f"{stat.label}" + (f" [{stat.unit}]" if stat.unit else ""),
                      type="log" if chart.log else "linear")
@@ -178,14 +180,15 @@ def rig_distribution_figure(edges, hist: pd.DataFrame, summary: pd.DataFrame, st
         colour = c["series"][i % len(c["series"])]
         fig.add_trace(go.Scatter(x=np.r_[show, show[::-1]], y=np.r_[top, np.full(len(show), float(i))],
                                  fill="toself", mode="lines", line=dict(color=colour, width=c["line"]),
-                                 name=f"{site} / {rig}", hoverinfo="skip", opacity=0.85))
+                                 name=label(f"{site} / {rig}"), hoverinfo="skip", opacity=0.85))
         row = summary[(summary["rig"] == rig) & (summary["site"] == site)]
         if len(row) and np.isfinite(row["mean"].iloc[0]):
             m = float(row["mean"].iloc[0])
             fig.add_trace(go.Scatter(x=[math.exp(m) if stat.log else m], y=[i + 0.1], mode="markers",
                                      marker=dict(size=c["marker"] + 3, color=c["ink"], symbol="diamond"),
-                                     showlegend=False, hovertemplate=f"{rig} mean %{{x:.3g}}<extra></extra>"))
-        labels.append(f"{rig} ({site})")
+                                     showlegend=False, text=[f"{full(rig)} mean"],
+                                     hovertemplate="%{text} %{x:.3g}<extra></extra>"))
+        labels.append(label(f"{rig} ({site})"))
     fig.update_yaxes(tickmode="array", tickvals=list(range(len(order))), ticktext=labels, range=[-0.2, len(order)])
     fig.update_xaxes(title=f"{stat.label}" + (f" [{stat.unit}]" if stat.unit else ""),
                      type="log" if stat.log else "linear")
@@ -198,14 +201,19 @@ def rig_rates_figure(summary: pd.DataFrame, *, meeting: bool = False) -> go.Figu
     c = _c(meeting)
     if not len(summary):
         return empty_figure("No actuations in the selection.", meeting=meeting)
-    x = [f"{r} ({s})" for r, s in zip(summary["rig"], summary["site"])]
+    # Rigs by position, named by tick text: shortened names of two rigs may coincide, positions never do.
+    x = list(range(len(summary)))
+    names = [f"{r} ({s})" for r, s in zip(summary["rig"], summary["site"])]
     fig = go.Figure()
     fig.add_trace(go.Bar(x=x, y=summary["flags_per_1000"], name="flagged per 1,000", marker_color=c["flag"],
-                         text=[f"{v:.0f}" for v in summary["flags_per_1000"]], textposition="outside"))
+                         text=[f"{v:.0f}" for v in summary["flags_per_1000"]], textposition="outside",
+                         hovertext=[full(n) for n in names], hovertemplate="%{hovertext}: %{y:.3g}<extra></extra>"))
     fig.add_trace(go.Bar(x=x, y=summary["qc_failures_per_1000"], name="quality check failed per 1,000",
                          marker_color=c["series"][0], text=[f"{v:.0f}" for v in summary["qc_failures_per_1000"]],
-                         textposition="outside"))
+                         textposition="outside", hovertext=[full(n) for n in names],
+                         hovertemplate="%{hovertext}: %{y:.3g}<extra></extra>"))
     fig.update_layout(barmode="group")
+    fig.update_xaxes(tickmode="array", tickvals=x, ticktext=[label(n) for n in names])
     fig.update_yaxes(title="per 1,000 actuations")
     return apply_look(fig, meeting=meeting, height=380)
 
@@ -240,11 +248,12 @@ def _trajectory_traces(fig, trajs, xy, c, **kw):
             colours[key] = c["series"][len(colours) % len(c["series"])]
         x, y = xy(np.asarray(r.scores, dtype=float))
         fig.add_trace(go.Scatter(
-            x=x, y=y, mode="lines", name=f"lot {r.lot}", legendgroup=key, showlegend=key not in seen,
+            x=x, y=y, mode="lines", name=label(f"lot {r.lot}"), legendgroup=key, showlegend=key not in seen,
             line=dict(color=c["flag"] if r.flagged else colours[key], width=c["line"] * (1.3 if r.flagged else 0.8)),
             opacity=0.95 if r.flagged else 0.6,
-            hovertemplate=f"actuation {r.actuation_id} · {r.rig} · lot {r.lot}{' · flagged' if r.flagged else ''}"
-                          "<extra></extra>"), **kw)
+            text=[f"actuation {r.actuation_id} · {full(r.rig)} · lot {full(r.lot)}"
+                  f"{' · flagged' if r.flagged else ''}"] * len(x),
+            hovertemplate="%{text}<extra></extra>"), **kw)
         seen.add(key)
 
 
@@ -283,10 +292,10 @@ def slice_stats_figure(times, t2, spe, *, t2_limit, spe_limit, labels=None, meet
     for j, (vals, lim) in enumerate(((t2, t2_limit), (spe, spe_limit)), start=1):
         for i in range(vals.shape[0]):
             over = lim is not None and np.nanmax(vals[i]) > lim
-            fig.add_trace(go.Scatter(x=t, y=vals[i], mode="lines+markers", name=labels[i], showlegend=False,
+            fig.add_trace(go.Scatter(x=t, y=vals[i], mode="lines+markers", name=label(labels[i]), showlegend=False,
                                      line=dict(width=c["line"], color=c["flag"] if over else c["series"][i % 8]),
-                                     marker=dict(size=c["marker"] - 3),
-                                     hovertemplate=f"{labels[i]}<br>%{{x:.3f}} s: %{{y:.3g}}<extra></extra>"),
+                                     marker=dict(size=c["marker"] - 3), text=[full(labels[i])] * len(t),
+                                     hovertemplate="%{text}<br>%{x:.3f} s: %{y:.3g}<extra></extra>"),
                           row=1, col=j)
         if lim is not None and math.isfinite(lim) and len(t):
             _level_line(fig, float(lim), float(t.min()), float(t.max()), f"limit {lim:.3g}", c["limit"], "dash", c,
@@ -313,7 +322,7 @@ def waveform_figure(t, lo, hi, events_df: pd.DataFrame | None = None, markers_s=
                 continue
             fig.add_vrect(x0=r.onset_s, x1=r.end_s if np.isfinite(r.end_s or np.nan) else r.onset_s + 0.01,
                           fillcolor=c["series"][(k + 1) % 8], opacity=0.18, line_width=0,
-                          annotation_text=str(r.name).replace("_", " "), annotation_position="top left",
+                          annotation_text=label(str(r.name).replace("_", " ")), annotation_position="top left",
                           annotation_font_color=c["ink"])
     for m in markers_s:
         fig.add_vline(x=float(m), line=dict(color=c["limit"], dash="dot", width=c["line"]))

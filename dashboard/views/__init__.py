@@ -19,7 +19,8 @@ def view_for_path(pathname: str):
         return today, {}
     m = _ACTUATION.match(p)
     if m:
-        return actuation, {"actuation_id": int(m.group("actuation_id"))}
+        n = int(m.group("actuation_id"))
+        return (actuation, {"actuation_id": n}) if 1 <= n <= 2**63 - 1 else (None, {})
     for v in VIEWS.values():
         if v.PATH == p and v is not actuation:
             return v, {}

@@ -13,9 +13,11 @@ from analysis.triage import actuation_state
 
 from .. import drill, figures
 from ..audio import audio_url
+from ..labels import short
+from ..safety import guarded, record_id
 from ..urlstate import register_url_state
 from ..words import describe_flag
-from .common import card, fmt, pick, table, view_header
+from .common import card, cell, fmt, pick, table, view_header
 
 NAME = "actuation"
 PATH = "/actuation"
@@ -30,6 +32,13 @@ def _model(ctx, model_id: int):
     if model_id not in cache:
         cache[model_id] = ctx.store.load_model(model_id)
     return cache[model_id]
+
+
+def profile_words(name, version, sha256) -> str:
+    """A device profile as the store recorded it: name, version and the start of its file's SHA-256."""
+    if version is None or version != version:  # None, or NaN from a column with gaps
+        return f"{name} (version not recorded: analysed before Harken kept it)"
+    return f"{name}, version {int(version)}" + (f", file SHA-256 {sha256[:12]}…" if isinstance(sha256, str) else "")
 
 
 def default_event(detail: dict, flags_df) -> str | None:
@@ -110,13 +119,14 @@ def layout(ctx, q: dict, actuation_id: int):
     event = pick(q.get("event"), names, default_event(d, fl))
     with ctx.store.read() as conn:
         ref_id = queries.typical_reference_actuation(conn, d["profile"], event) if event else None
-    flag_items = [html.Li(describe_flag(r.statistic, r.event, r.reason, r.value, r.limit),
+    flag_items = [html.Li(short(describe_flag(r.statistic, r.event, r.reason, r.value, r.limit), 400),
                           className="flag-line") for r in fl.itertuples()]
     state = actuation_state(passed_qc=bool(d["passed_qc"]), n_model_flags=int(fl["statistic"].map(
         lambda s: not str(s).startswith("qc:")).sum()) if len(fl) else 0,
         n_qc_flags=int(fl["statistic"].str.startswith("qc:").sum()) if len(fl) else 0)
     meta = [("Site", d["site"]), ("Rig", d["rig"]), ("Lot", d["lot"]), ("Unit", d["unit"]),
-            ("Actuation no.", d["actuation"]), ("Recorded", d["recorded_at_text"]), ("Device profile", d["profile"]),
+            ("Actuation no.", d["actuation"]), ("Recorded", d["recorded_at_text"]),
+            ("Device profile", profile_words(d["profile"], d.get("profile_version"), d.get("profile_sha256"))),
             ("File", d["original_name"]), ("Sample rate", f"{d['sample_rate_hz']} Hz"),
             ("Channels", d["channels"]), ("Duration", f"{fmt(d['duration_s'])} s"),
             ("Markers from", d["marker_source"]), ("Notes", d["sidecar"].get("notes", ""))]
@@ -142,7 +152,8 @@ def layout(ctx, q: dict, actuation_id: int):
                               className="muted"))
     return html.Div([
         view_header(f"Actuation {actuation_id}",
-                    f"{d['rig']} at {d['site']} · lot {d['lot']} · unit {d['unit']} · {d['recorded_at_text']}"),
+                    f"{short(d['rig'])} at {short(d['site'])} · lot {short(d['lot'])} · unit {short(d['unit'])} · "
+                    f"{d['recorded_at_text']}"),
         dcc.Store(id="actuation-id", data=int(actuation_id)),
         html.Div(className="grid-2", children=[
             card(html.H3(["State: ", html.Span(state, className=f"state state-{state.replace(' ', '-')}")]),
@@ -178,7 +189,7 @@ def layout(ctx, q: dict, actuation_id: int):
                 ("detail", "Detail", str)], id="actuation-qc",
                 row_class=lambda r: None if r["passed"] else "row-flagged")),
             card(html.H3("Metadata"),
-                 html.Table(html.Tbody([html.Tr([html.Th(k), html.Td(fmt(v) if not isinstance(v, str) else v)])
+                 html.Table(html.Tbody([html.Tr([html.Th(k), cell(fmt(v) if not isinstance(v, str) else v)])
                                         for k, v in meta]), className="app-table", id="actuation-meta"),
                  html.H3("Events"), table(ev, [("name", "Event", str), ("found", "Found"), ("onset_s", "Onset [s]"),
                                                ("duration_s", "Duration [s]"), ("peak_dbfs", "Peak [dBFS]"),
@@ -198,15 +209,17 @@ def register(app, ctx):
                   Output("actuation-note", "children"),
                   Input("actuation-event", "value"), Input("actuation-slice", "value"), Input("app-meeting", "data"),
                   State("actuation-id", "data"))
+    @guarded("figure", "figure", "figure", "figure", "figure", "options", "text")
     def update(event, slice_choice, meeting, actuation_id):
-        f = actuation_figures(ctx, int(actuation_id), event, slice_choice, meeting=bool(meeting))
+        f = actuation_figures(ctx, record_id(actuation_id), event, slice_choice, meeting=bool(meeting))
         return (f["waveform"], f["spectrogram"], f["bands"], f["slices"], f["contributions"], f["slice_options"],
                 f["note"])
 
     @app.callback(Output("actuation-audio-event", "src"), Input("actuation-event", "value"),
                   State("actuation-id", "data"), prevent_initial_call=True)
+    @guarded("keep")
     def event_audio(event, actuation_id):
-        return audio_url(int(actuation_id), event) if event else ""
+        return audio_url(record_id(actuation_id), str(event)) if event else ""
 
     app.clientside_callback(
         "function(q, id) { return window.location.href; }",

@@ -10,8 +10,10 @@ from dash import dcc, html
 
 from analysis.store import STATISTICS, Filters
 
-__all__ = ["split_list", "parse_day", "table", "filter_bar", "filters_from", "stat_options", "fmt", "card",
-           "pick", "view_header"]
+from ..labels import HOVER_CHARS, LABEL_CHARS, short
+
+__all__ = ["split_list", "parse_day", "table", "cell", "name_option", "name_options", "filter_bar", "filters_from",
+           "stat_options", "fmt", "card", "pick", "view_header", "OPTION_VALUE_CHARS"]
 
 
 def split_list(value) -> list[str]:
@@ -62,13 +64,47 @@ def card(*children, class_name: str = "", **kw):
 
 
 def view_header(title: str, subtitle: str = ""):
-    return html.Div(className="view-header",
-                    children=[html.H1(title), html.P(subtitle, className="view-subtitle") if subtitle else None])
+    return html.Div(className="view-header", children=[
+        html.H1(short(title, 120)), html.P(short(subtitle, 400), className="view-subtitle") if subtitle else None])
+
+
+#: Characters of a table cell shown in full (a longer one is cut, its whole text on hover up to HOVER_CHARS).
+CELL_CHARS = 300
+
+
+def cell(text, limit: int = CELL_CHARS):
+    """A table cell's text: whole when short, else cut with the whole (up to HOVER_CHARS) as its title."""
+    text = str(text)
+    if len(text) <= limit:
+        return html.Td(text)
+    return html.Td(short(text, limit), title=short(text, HOVER_CHARS))
+
+
+#: Longest value a dropdown option may carry: the browser's dropdown stalls for minutes on a value of 100,000
+#: characters (measured with Chromium; 5,000 is still quick). Sidecar names are at most 200 characters today, so
+#: only rows an older version or a hand left in the database are this long.
+OPTION_VALUE_CHARS = 1_000
+
+
+def name_option(text, value=None) -> dict | None:
+    """A dropdown option for a name from the store: a shortened label, the whole name (or ``value``) as value;
+    None when the value is too long to offer (leave it out: the views show it unfiltered)."""
+    value = text if value is None else value
+    if len(str(value)) > OPTION_VALUE_CHARS:
+        return None
+    return {"label": short(text, LABEL_CHARS * 2), "value": value}
+
+
+def name_options(pairs) -> list[dict]:
+    """Options from (label, value) pairs or names, without those too long to offer."""
+    out = (name_option(*p) if isinstance(p, tuple) else name_option(p) for p in pairs)
+    return [o for o in out if o is not None]
 
 
 def table(df: pd.DataFrame, columns, *, id=None, link=None, class_name: str = "app-table", row_class=None):
     """A plain HTML table. columns: [(column, header) or (column, header, formatter)]. link: (column, href
-    function) makes that column's cells links. row_class: function of the row giving a CSS class."""
+    function) makes that column's cells links. row_class: function of the row giving a CSS class. Long texts
+    are cut (``cell``)."""
     head = html.Thead(html.Tr([html.Th(c[1]) for c in columns]))
     rows = []
     for r in df.to_dict("records"):
@@ -77,9 +113,9 @@ def table(df: pd.DataFrame, columns, *, id=None, link=None, class_name: str = "a
             key, f = c[0], (c[2] if len(c) > 2 else fmt)
             text = f(r.get(key))
             if link and key == link[0]:
-                cells.append(html.Td(dcc.Link(text, href=link[1](r))))
+                cells.append(html.Td(dcc.Link(short(text, CELL_CHARS), href=link[1](r))))
             else:
-                cells.append(html.Td(text))
+                cells.append(cell(text))
         rows.append(html.Tr(cells, className=row_class(r) if row_class else None))
     kw = {"id": id} if id else {}
     return html.Table([head, html.Tbody(rows)], className=class_name, **kw)
@@ -100,9 +136,9 @@ def filter_bar(view: str, ch: dict, q: dict, *, want=("profile", "event", "stat"
     event = pick(q.get("event"), events,
                  "dose_release" if "dose_release" in events else (events[0] if events else None))
     stat = pick(q.get("stat"), list(STATISTICS), default_stat)
-    sites_ = [s for s in split_list(q.get("site")) if s in ch["sites"]]
+    sites_ = [s for s in split_list(q.get("site")) if s in ch["sites"] and len(s) <= OPTION_VALUE_CHARS]
     rig_names = [r for r, _ in ch["rigs"]]
-    rigs_ = [r for r in split_list(q.get("rig")) if r in rig_names]
+    rigs_ = [r for r in split_list(q.get("rig")) if r in rig_names and len(r) <= OPTION_VALUE_CHARS]
     d_from, d_to = parse_day(q.get("from")), parse_day(q.get("to"))
     parts = []
 
@@ -110,22 +146,21 @@ def filter_bar(view: str, ch: dict, q: dict, *, want=("profile", "event", "stat"
         return html.Label([html.Span(text, className="filter-label"), comp], className="filter")
 
     if "profile" in want:
-        parts.append(labelled("Device profile", dcc.Dropdown(id=f"{view}-profile", options=profiles, value=profile,
-                                                             clearable=False)))
+        parts.append(labelled("Device profile", dcc.Dropdown(id=f"{view}-profile", value=profile, clearable=False,
+                                                             options=name_options(profiles))))
     if "event" in want:
         parts.append(labelled("Event", dcc.Dropdown(id=f"{view}-event", value=event, clearable=False,
-                                                    options=[{"label": e.replace("_", " "), "value": e}
-                                                             for e in events])))
+                                                    options=name_options((e.replace("_", " "), e) for e in events))))
     if "stat" in want:
         parts.append(labelled("Statistic", dcc.Dropdown(id=f"{view}-stat", options=stat_options(), value=stat,
                                                         clearable=False, className="filter-wide")))
     if "site" in want:
-        parts.append(labelled("Sites", dcc.Dropdown(id=f"{view}-site", options=ch["sites"], value=sites_, multi=True,
+        parts.append(labelled("Sites", dcc.Dropdown(id=f"{view}-site", value=sites_, multi=True,
+                                                    options=name_options(ch["sites"]),
                                                     placeholder="all sites")))
     if "rig" in want:
         parts.append(labelled("Rigs", dcc.Dropdown(id=f"{view}-rig", multi=True, value=rigs_, placeholder="all rigs",
-                                                   options=[{"label": f"{r} ({s})", "value": r}
-                                                            for r, s in ch["rigs"]])))
+                                                   options=name_options((f"{r} ({s})", r) for r, s in ch["rigs"]))))
     if "dates" in want:
         parts.append(labelled("Recorded (UTC days)", dcc.DatePickerRange(
             id=f"{view}-dates", start_date=d_from.isoformat() if d_from else None,

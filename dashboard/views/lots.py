@@ -3,13 +3,18 @@ signals; clicking an actuation opens it, clicking a lot point lists the lot's ac
 
 from __future__ import annotations
 
+from urllib.parse import quote
+
 from dash import Input, Output, dcc, html
 
 from analysis.monitor import RULE_SETS, RULES, lot_chart
 from analysis.store import Filters, queries, statistic
+from analysis.triage import actuation_state
 
 from .. import figures
 from ..cache import cached_query
+from ..labels import short
+from ..safety import guarded
 from ..urlstate import register_url_state
 from .common import card, filter_bar, filters_from, fmt, pick, split_list, table, view_header
 
@@ -53,7 +58,7 @@ def chart_summary(chart, stat) -> str:
     lim = "no limits" if chart.ucl != chart.ucl else (
         f"centre {fmt(chart.to_display(chart.centre))}, limits {fmt(chart.to_display(chart.lcl))} – "
         f"{fmt(chart.to_display(chart.ucl))}")
-    where = ", ".join(f"lot {r.lot} on {r.rig}" for r in sig.itertuples()) or "none"
+    where = ", ".join(f"lot {short(r.lot)} on {short(r.rig)}" for r in sig.itertuples()) or "none"
     scale = " (on a log scale: the lot's geometric mean)" if chart.log else " (the lot's mean)"
     return (f"{stat.label}{scale}: {lim}, fitted to {chart.limits_from}. "
             f"Signals ({len(sig)}): {where}.")
@@ -97,6 +102,7 @@ def register(app, ctx):
                   Input("lots-site", "value"), Input("lots-rig", "value"), Input("lots-dates", "start_date"),
                   Input("lots-dates", "end_date"), Input("lots-group", "value"), Input("lots-rules", "value"),
                   Input("lots-cloud", "value"), Input("app-meeting", "data"))
+    @guarded("figure", "text")
     def update_chart(profile, event, stat, sites_, rigs_, start, end, group, rules, cloud, meeting):
         if not event:
             return figures.empty_figure("No events with results in this store yet.", meeting=bool(meeting)), ""
@@ -129,6 +135,7 @@ def register(app, ctx):
     )
 
     @app.callback(Output("lots-detail", "children"), Input("lots-selected", "data"), Input("lots-group", "value"))
+    @guarded("children")
     def show_lot(selected, group):
         return lot_detail(ctx.store, selected)
 
@@ -141,12 +148,13 @@ def lot_detail(store, selected):
     with store.read() as conn:
         df = queries.lot_actuations(conn, lot, rig=rig_filter)
     if df.empty:
-        return html.P(f"No actuations of lot {lot}.")
-    df["state"] = ["quality check failed" if not p else ("flagged" if n else "analysed")
+        return html.P(f"No actuations of lot {short(lot)}.")
+    df["state"] = [actuation_state(passed_qc=bool(p), n_model_flags=int(n), n_qc_flags=0)
                    for p, n in zip(df["passed_qc"], df["n_flags"])]
     return html.Div([
-        html.H3(f"Lot {lot}" + (f" on {rig_filter}" if rig_filter else " (all rigs)") + f": {len(df)} actuations"),
-        html.P(dcc.Link("Show this lot's score trajectories", href=f"/trajectories?lots={lot}",
+        html.H3(f"Lot {short(lot)}" + (f" on {short(rig_filter)}" if rig_filter else " (all rigs)")
+                + f": {len(df)} actuations"),
+        html.P(dcc.Link("Show this lot's score trajectories", href=f"/trajectories?lots={quote(lot)}",
                         id="lots-detail-trajectories")),
         table(df, [("actuation_id", "Actuation"), ("unit", "Unit"), ("actuation", "No."), ("rig", "Rig"),
                    ("recorded_at", "Recorded"), ("state", "State"), ("n_flags", "Flags")],

@@ -5,11 +5,14 @@ from __future__ import annotations
 
 import uuid
 
+import pandas as pd
 from dash import Input, Output, State, dcc, html
 
+from analysis.profiles import is_profile_name
 from analysis.store import queries
 
-from .common import card, table, view_header
+from ..safety import guarded
+from .common import card, name_options, table, view_header
 
 NAME = "references"
 PATH = "/references"
@@ -26,11 +29,13 @@ def models_view(store) -> html.Div:
     df["lots"] = df["reference_lots"].map(", ".join)
     df["params"] = df["parameters"].map(lambda p: ", ".join(f"{k}={v}" for k, v in p.items() if v is not None))
     df["made"] = [f"{who}, {str(at)[:16]} UTC" for who, at in zip(df["created_by"], df["created_at"])]
+    df["profile_file"] = [f"version {int(v)}, SHA-256 {h[:12]}…" if pd.notna(v) and isinstance(h, str) else
+                          "not recorded" for v, h in zip(df["profile_version"], df["profile_sha256"])]
     return table(df, [("profile", "Profile", str), ("event", "Event", str), ("version", "Version"),
                       ("status", "Status", str), ("lots", "Reference lots", str), ("n_recordings", "Actuations"),
                       ("n_components", "Components"), ("t2_limit", "T² limit"), ("spe_limit", "SPE limit"),
                       ("scored", "Scored"), ("flagged", "Flagged"), ("made", "Made by, when", str),
-                      ("params", "Parameters", str)], id="references-table",
+                      ("profile_file", "Profile file", str), ("params", "Parameters", str)], id="references-table",
                  row_class=lambda r: "row-active" if r["status"] == "active" else "row-retired")
 
 
@@ -61,6 +66,7 @@ def layout(ctx, q: dict):
     profile = ch["profiles"][0] if ch["profiles"] else None
     events = ch["events"].get(profile, []) if profile else []
     current = sorted({lot for v in ref_now.values() for lot in v})
+    lot_options = name_options(ch["lots"])
     return html.Div([
         view_header("References", "Reference models fitted from lots of known-good devices. Every actuation is "
                                   "scored against the active version of its event."),
@@ -71,7 +77,8 @@ def layout(ctx, q: dict):
                     "It is recorded in the store's audit log under your name.", className="muted"),
              html.Div(className="filter-bar", children=[
                  html.Label([html.Span("Device profile", className="filter-label"), dcc.Dropdown(
-                     id="references-profile", options=ch["profiles"], value=profile, clearable=False)],
+                     id="references-profile", options=name_options(ch["profiles"]), value=profile,
+                     clearable=False)],
                      className="filter"),
                  html.Label([html.Span("Events", className="filter-label"), dcc.Checklist(
                      id="references-events", options=events, value=events, inline=True)], className="filter"),
@@ -80,7 +87,9 @@ def layout(ctx, q: dict):
                      className="filter"),
              ]),
              html.Label([html.Span("Reference lots", className="filter-label"), dcc.Checklist(
-                 id="references-lots", options=ch["lots"], value=current, inline=True, className="lot-checklist")]),
+                 id="references-lots", options=lot_options,
+                 value=[lot for lot in current if lot in {o["value"] for o in lot_options}], inline=True,
+                 className="lot-checklist")]),
              html.Div(className="build-row", children=[
                  html.Button("Build reference", id="references-build", className="button-primary"),
                  html.Button("Cancel", id="references-cancel", className="button"),
@@ -96,16 +105,34 @@ def _f(info, name):
     return info[name] if isinstance(info, dict) else getattr(info, name)
 
 
+def _texts(value) -> list[str] | None:
+    """A list of short texts from a request (a checklist's value), or None when it is anything else."""
+    if not isinstance(value, list) or len(value) > 1000:
+        return None
+    if not all(isinstance(v, str) and 0 < len(v) <= 200 and v.isprintable() for v in value):
+        return None
+    return value
+
+
 def check_build(profile, lots_, events_, person) -> str | None:
-    """What is missing before a build can start (None when nothing)."""
-    if not (person or "").strip():
+    """What is missing or not allowed before a build can start (None when nothing). The profile is a name, never
+    a path (analysis.profiles.find_profile looks it up in the profile folders)."""
+    if not isinstance(person, str) or not person.strip():
         return "Give your name: a reference build is recorded under it."
+    if len(person) > 200 or not person.isprintable():
+        return "Give your name as up to 200 printable characters."
     if not profile:
         return "Choose a device profile."
+    if not is_profile_name(profile):
+        return "Choose a device profile from the list (a profile is chosen by its name)."
     if not lots_:
         return "Choose at least one reference lot."
+    if _texts(lots_) is None:
+        return "Choose the reference lots from the list."
     if not events_:
         return "Choose at least one event."
+    if _texts(events_) is None:
+        return "Choose the events from the list."
     return None
 
 
@@ -125,6 +152,7 @@ def register(app, ctx):
         progress=[Output("references-progress", "value"), Output("references-progress", "max"),
                   Output("references-status", "children", allow_duplicate=True)],
     )
+    @guarded("children", "text")
     def build(set_progress, _n, profile, lots_, events_, person, _load_id):
         problem = check_build(profile, lots_, events_, person)
         if problem:

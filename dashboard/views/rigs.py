@@ -13,6 +13,7 @@ from analysis.store import Filters, queries, statistic
 
 from .. import figures
 from ..cache import cached_query
+from ..safety import guarded
 from ..urlstate import register_url_state
 from .common import card, filter_bar, filters_from, fmt, table, view_header
 
@@ -95,6 +96,7 @@ def register(app, ctx):
                   Input("rigs-profile", "value"), Input("rigs-event", "value"), Input("rigs-stat", "value"),
                   Input("rigs-site", "value"), Input("rigs-dates", "start_date"), Input("rigs-dates", "end_date"),
                   Input("app-meeting", "data"))
+    @guarded("children", "figure", "figure")
     def update(profile, event, stat_key, sites_, start, end, meeting):
         meeting = bool(meeting)
         if not event:

@@ -10,6 +10,8 @@ from dash import Input, Output, dcc, html
 from analysis.store import queries
 from analysis.triage import NEXT_STEP, actuation_state, suggest_cause
 
+from ..labels import short
+from ..safety import guarded
 from ..urlstate import register_url_state
 from ..words import describe_flag
 from .common import card, pick, table, view_header
@@ -64,12 +66,13 @@ def render_today(data: dict) -> html.Div:
         r = g.iloc[0]
         items.append(html.Li(className=f"flag-item cause-{r['cause']}", children=[
             html.Div([dcc.Link(f"Actuation {aid}", href=f"/actuation/{aid}"),
-                      html.Span(f" · {r['rig']} ({r['site']}) · lot {r['lot']} · unit {r['unit']} · {r['recorded_at']}",
+                      html.Span(f" · {short(r['rig'])} ({short(r['site'])}) · lot {short(r['lot'])} · unit "
+                                f"{short(r['unit'])} · {r['recorded_at']}",
                                 className="muted")]),
-            html.Ul([html.Li(w) for w in g["words"].head(MAX_LINES)] + (
+            html.Ul([html.Li(short(w, 400)) for w in g["words"].head(MAX_LINES)] + (
                 [html.Li(f"... and {len(g) - MAX_LINES} more on the actuation's page", className="muted")]
                 if len(g) > MAX_LINES else [])),
-            html.Div([html.Strong(f"Suggested cause: {r['cause']}"), html.Span(f" — {r['because']}. "),
+            html.Div([html.Strong(f"Suggested cause: {r['cause']}"), html.Span(f" — {short(r['because'], 400)}. "),
                       html.Span(f"Next: {NEXT_STEP[r['cause']]}.", className="muted")]),
         ]))
     flags_block = html.Ul(items, id="today-flags", className="flag-list") if items else \
@@ -77,7 +80,7 @@ def render_today(data: dict) -> html.Div:
     per_rig = []
     for (site, rig), g in rows.groupby(["site", "rig"], sort=True):
         per_rig.append(html.Div(className="rig-block", children=[
-            html.H3(f"{rig} · {site}"),
+            html.H3(f"{short(rig)} · {short(site)}"),
             table(g, [("actuation_id", "Actuation"), ("recorded_at", "Recorded", str), ("lot", "Lot", str),
                       ("unit", "Unit", str), ("state", "State", str), ("cause", "Suggested cause", str)],
                   link=("actuation_id", lambda r: f"/actuation/{r['actuation_id']}"),
@@ -113,5 +116,7 @@ def register(app, ctx):
 
     @app.callback(Output("today-body", "children"), Input("today-interval", "n_intervals"),
                   Input("today-per-rig", "value"))
+    @guarded("children")
     def refresh(_n, per_rig):
-        return render_today(today_data(ctx.store, per_rig=int(per_rig or 10)))
+        n = int(pick(str(per_rig), [str(v) for v in PER_RIG_CHOICES], "10"))
+        return render_today(today_data(ctx.store, per_rig=n))

@@ -10,8 +10,9 @@ from analysis.errors import AnalysisError
 from analysis.store import StoreError, queries
 
 from .. import figures
+from ..safety import MAX_ID, guarded
 from ..urlstate import register_url_state
-from .common import card, filter_bar, split_list, view_header
+from .common import card, filter_bar, name_options, split_list, view_header
 
 NAME = "trajectories"
 PATH = "/trajectories"
@@ -23,12 +24,20 @@ URL_STATE = [("profile", "trajectories-profile", "value"), ("event", "trajectori
              ("x", "trajectories-x", "value"), ("y", "trajectories-y", "value")]
 
 
+def _component(value, default: int) -> int:
+    """A component index from the URL or a dropdown: 0..9, else the default."""
+    text = str(value)
+    return int(text) if text.isdigit() and int(text) < 10 else default
+
+
 def parse_ids(text) -> list[int]:
-    """'12, 15 20' -> [12, 15, 20] (anything that is not a whole number is ignored)."""
+    """'12, 15 20' -> [12, 15, 20]: whole numbers that can be store ids (1 .. 2**63 - 1), at most 200 of them;
+    anything else is ignored."""
     out = []
-    for part in str(text or "").replace(";", ",").replace(" ", ",").split(","):
-        if part.strip().isdigit():
-            out.append(int(part.strip()))
+    for part in str(text or "")[:10_000].replace(";", ",").replace(" ", ",").split(","):
+        p = part.strip()
+        if p.isdigit() and 1 <= int(p) <= MAX_ID and len(out) < 200:
+            out.append(int(p))
     return out
 
 
@@ -49,16 +58,18 @@ def trajectories_data(ctx, profile, event, *, lots_=(), ids=()) -> dict:
 def layout(ctx, q: dict):
     with ctx.store.read() as conn:
         ch = queries.choices(conn)
-    lots_ = [lot for lot in split_list(q.get("lots")) if lot in ch["lots"]]
-    if not lots_ and not q.get("ids") and ch["lots"]:
-        lots_ = ch["lots"][-1:]
+    offered = [o["value"] for o in name_options(ch["lots"])]
+    lots_ = [lot for lot in split_list(q.get("lots")) if lot in offered]
+    if not lots_ and not q.get("ids") and offered:
+        lots_ = offered[-1:]
     comps = [{"label": f"component {i + 1}", "value": str(i)} for i in range(10)]
     return html.Div([
         view_header("Trajectories", "Score trajectories over the slices of an event, against the reference envelope "
                                     "(centre ± 3 spreads per slice). Flagged actuations are drawn in the flag colour."),
         card(filter_bar(NAME, ch, q, want=("profile", "event")), html.Div(className="filter-bar", children=[
             html.Label([html.Span("Lots", className="filter-label"), dcc.Dropdown(
-                id="trajectories-lots", options=ch["lots"], value=lots_, multi=True, placeholder="choose lots")],
+                id="trajectories-lots", options=name_options(ch["lots"]), value=lots_, multi=True,
+                placeholder="choose lots")],
                 className="filter filter-wide"),
             html.Label([html.Span("Actuation ids", className="filter-label"), dcc.Input(
                 id="trajectories-ids", value=q.get("ids", ""), debounce=True, placeholder="e.g. 12, 40",
@@ -118,7 +129,8 @@ def register(app, ctx):
                   Input("trajectories-profile", "value"), Input("trajectories-event", "value"),
                   Input("trajectories-lots", "value"), Input("trajectories-ids", "value"),
                   Input("trajectories-x", "value"), Input("trajectories-y", "value"), Input("app-meeting", "data"))
+    @guarded("figure", "figure", "figure", "text")
     def update(profile, event, lots_, ids, x, y, meeting):
         data = trajectories_data(ctx, profile, event, lots_=split_list(lots_), ids=parse_ids(ids))
-        f = trajectory_figures(data, x=int(x or 0), y=int(y or 1), meeting=bool(meeting))
+        f = trajectory_figures(data, x=_component(x, 0), y=_component(y, 1), meeting=bool(meeting))
         return f["time"], f["plane"], f["slices"], f["note"]
