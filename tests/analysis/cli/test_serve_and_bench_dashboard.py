@@ -33,3 +33,52 @@ def test_synthetic_store_and_view_timings(tmp_path):
     assert pts["n_all"].sum() == 400 and pts["lot"].nunique() == 5
     t = time_views(app.harken, repeat=1)
     assert set(t) == {"lots", "rigs", "today"}  # the bench times every view it promises (times are not asserted)
+
+
+def test_the_network_warning_is_given_for_every_host_but_this_machine():
+    assert serve_cmd.network_warning("127.0.0.1", 8050) is None and serve_cmd.network_warning("::1", 1) is None
+    words = serve_cmd.network_warning("0.0.0.0", 8050)
+    assert "no sign-in" in words and "8050" in words
+
+
+def test_threads_out_of_range_are_refused(tmp_path):
+    import pytest
+
+    from analysis.errors import ParameterError
+
+    with pytest.raises(ParameterError, match="--threads must be from 1 to 256; got 0"):
+        serve_cmd.serve(f"sqlite:///{tmp_path / 'none.db'}", threads=0)
+
+
+def test_harken_serve_runs_on_waitress_with_the_headers_and_warns_on_the_network(tmp_path):
+    """The real command in its own process: the production server answers (its Server header), the security
+    headers are on, and listening on every address prints the warning to stderr."""
+    import socket
+    import subprocess
+    import sys
+    import time
+    import urllib.request
+
+    url = f"sqlite:///{tmp_path / 's.db'}"
+    fill_synthetic_store(url, 60, n_lots=2)
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    proc = subprocess.Popen([sys.executable, "-m", "analysis.cli", "serve", "--store", url, "--host", "0.0.0.0",
+                             "--port", str(port), "--threads", "2", "--cache-dir", str(tmp_path / "c")],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        deadline, answer = time.monotonic() + 60, None
+        while answer is None and time.monotonic() < deadline and proc.poll() is None:
+            try:
+                answer = urllib.request.urlopen(f"http://127.0.0.1:{port}/health", timeout=5)
+            except OSError:
+                time.sleep(0.3)
+        assert answer is not None, proc.stderr.read() if proc.poll() is not None else "no answer in 60 s"
+        assert answer.status == 200 and answer.headers["Server"] == "harken"  # waitress's ident, not Werkzeug
+        assert "frame-ancestors 'none'" in answer.headers["Content-Security-Policy"]
+    finally:
+        proc.terminate()
+        out, err = proc.communicate(timeout=30)
+    assert "warning: --host 0.0.0.0 serves the dashboard to the network with no sign-in" in err
+    assert f"http://0.0.0.0:{port}/" in out and "2 threads" in out
