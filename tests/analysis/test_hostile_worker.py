@@ -20,8 +20,6 @@ def hostile(tmp_path):
 
 @pytest.mark.parametrize("jobs", [1, 2])
 def test_every_hostile_delivery_ends_as_its_case_says(store_url, hostile, jobs):
-    if jobs == 1 and store_url.startswith("postgresql"):
-        pytest.skip("the in-process path is checked on SQLite; PostgreSQL runs the pool path")
     folder, cases = hostile
     assert len(cases) >= 40 and len({c.key for c in cases}) == len(cases)
     inbox = folder / "inbox"
