@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from .monitor import ReferenceModel
+from .monitor.levels import group_limits_from_model
 from .profiles import find_profile
 from .scoring import FeatureSet, current_user, fit_event_model
 from .store import Store, StoreError
@@ -88,11 +89,15 @@ def build_reference(
     who = created_by or current_user()
     made = []
     for event in names:
-        fs = _feature_set(store, prof.name, event, lots)
+        fs, units = _feature_set(store, prof.name, event, lots)
         # an actuation flags when any event does: split alpha over the events built (as `harken model fit`)
         model, meta = fit_event_model(fs, profile=prof, n_components=n_components, scaling=scaling,
                                       alpha=alpha / len(names))
         meta["created_by"] = who
+        # A unit's mean of each statistic gets limits from the held-out reference values (analysis.monitor.levels);
+        # the unit level keeps the same false-alarm budget per unit as the actuation level per actuation.
+        meta["unit_limits"] = {k: v.to_dict() for k, v in group_limits_from_model(
+            model, units=np.asarray(units), lots=np.asarray(fs.lots), alpha=alpha / len(names)).items()}
         model.metadata_ = meta
         model_id, version = store.insert_model(profile=prof.name, event=event, model=model, meta=meta,
                                                created_by=who)
@@ -114,7 +119,7 @@ def _feature_set(store, profile, event, lots) -> FeatureSet:
         have = store.lot_names(profile)
         raise StoreError(f"{store.url}: no stored actuations of profile {profile!r} in lot(s) {', '.join(absent)} "
                          f"(lots in the store: {', '.join(have) or 'none'})")
-    rows, paths, lot_of, excluded = [], [], [], []
+    rows, paths, lot_of, unit_of, excluded = [], [], [], [], []
     times = centres = None
     for r in df.itertuples(index=False):
         if not r.passed_qc:
@@ -131,11 +136,12 @@ def _feature_set(store, profile, event, lots) -> FeatureSet:
         rows.append(r.levels)
         paths.append(r.file)
         lot_of.append(r.lot)
+        unit_of.append(r.unit)
     if not rows:
         raise StoreError(f"{store.url}: no usable actuations of {profile}/{event} in lots {', '.join(lots)} "
                          f"({len(excluded)} left out)")
     return FeatureSet(event=event, X=np.stack(rows).astype(float), paths=tuple(paths), lots=tuple(lot_of),
-                      slice_times_s=times, band_centres_hz=centres, excluded=tuple(excluded))
+                      slice_times_s=times, band_centres_hz=centres, excluded=tuple(excluded)), unit_of
 
 
 def rescore(store, profile: str, *, events: Sequence[str] | None = None, model_id: int | None = None,
@@ -177,6 +183,6 @@ def rescore(store, profile: str, *, events: Sequence[str] | None = None, model_i
                     ok_x.append(r["levels"])
             if ok_x:
                 items += list(zip(ok_ids, score_levels(model, np.stack(ok_x))))
-            store.insert_scores(mid, event, items)
+            store.insert_scores(mid, event, items, refresh_profile=profile)
             total += len(items)
     return total

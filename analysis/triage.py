@@ -15,10 +15,12 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
 import pandas as pd
 
 __all__ = ["CAUSES", "NEXT_STEP", "CellCause", "lot_rigs_signalling", "rig_lots_signalling", "cell_causes",
-           "suggest_cause", "actuation_state"]
+           "suggest_cause", "actuation_state", "LEVELS", "CHART_STATISTICS", "Decision", "decide", "cell_table",
+           "evidence_words"]
 
 CAUSES = ("recording", "rig", "lot", "unit")
 
@@ -116,3 +118,345 @@ def actuation_state(*, passed_qc: bool, n_model_flags: int, n_qc_flags: int) -> 
     if n_model_flags:
         return "flagged"
     return "analysed"
+
+
+# ==================================================================================================================
+# Decisions at every level (unit, cell, lot, rig, actuation) and their suggested causes.
+#
+# Input: per-unit summaries of each per-actuation statistic (on its natural log), the unit limits of each event's
+# model, and the flagged actuations. Output: Decision rows, each with its evidence as data; `evidence_words` turns
+# evidence into the sentence the dashboard and the export show. The rules:
+# - unit: a unit's mean beyond its MeanLimits UCL for its number of actuations (analysis.monitor.levels);
+# - cell (lot, rig) and lot: the lot-by-lot chart's points, limits and run rules (analysis.monitor.lot_chart),
+#   per rig and pooled over rigs, of the cell means of CHART_STATISTICS;
+# - the causes of signalling cells come from a robust two-way decomposition of the lot x rig table of cell
+#   departures (in chart sigmas; Tukey's median polish): a lot whose cells depart together on several rigs ->
+#   the lot; a rig whose cells depart beyond what their lots explain in two or more lots, or whose own sequence
+#   of lots breaks a run rule -> the rig; a cell neither explains -> its units when the departure is
+#   concentrated in units that signal on their own, else the rig during that lot;
+# - a unit signal takes the cause of its lot or rig when that explains it, else the unit;
+# - a flagged actuation: a quality-check failure -> the recording; else the cause of its unit when the unit
+#   signals, else of its cell, else the unit.
+# ==================================================================================================================
+
+LEVELS = ("actuation", "unit", "cell", "lot", "rig")
+#: Statistics charted lot by lot (cells, lots, rigs): the event residual, the statistic of the Lots view's chart.
+#: Its reference points are nearly as spread as new lots' (the residual of a few components is not fitted away);
+#: score-based statistics (trajectory distance, T²) sit lower on the reference lots the model was fitted to, so
+#: their lot charts would signal on every new lot: they are judged at the unit level, whose limits come from
+#: held-out values.
+CHART_STATISTICS = ("event_spe_ratio",)
+#: Departure (in chart sigmas) a cell needs to count as departing with its lot, or beyond its lot (rig).
+DEPART_SIGMAS = 2.0
+RESIDUAL_SIGMAS = 3.0
+
+
+@dataclass(frozen=True)
+class Decision:
+    """One raised signal: level (LEVELS), event, statistic, value and limit (in the statistic's own units, e.g.
+    x reference median), rule (what fired: "beyond", run-rule ids, "across rigs", "across lots", "quality check"),
+    where it is (site, rig, lot, unit, actuation_id; None where it does not apply), the suggested cause, the
+    evidence as data, and the recording-time span (first, last) of the actuations behind it."""
+
+    level: str
+    event: str | None
+    statistic: str
+    value: float | None
+    limit: float | None
+    rule: str
+    site: str | None
+    rig: str | None
+    lot: str | None
+    unit: str | None
+    actuation_id: int | None
+    cause: str
+    evidence: dict
+    first: object = None
+    last: object = None
+
+    @property
+    def key(self) -> str:
+        """The signal's identity across refreshes: what it is about, not what it measured."""
+        parts = (self.level, self.event or "", self.lot or "", self.rig or "", self.unit or "",
+                 "" if self.actuation_id is None else str(int(self.actuation_id)))
+        return "|".join(parts)
+
+
+def _finite(x) -> float | None:
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return None
+    return x if math.isfinite(x) else None
+
+
+def cell_table(units: pd.DataFrame) -> pd.DataFrame:
+    """Per (event, statistic, lot, rig): n, mean (of the log statistic), site, first, last, reference, from
+    per-unit rows (event, statistic, lot, rig, site, unit, n, mean, first, last, reference)."""
+    u = units[units["n"] > 0].copy()
+    u["s1"] = u["n"] * u["mean"]
+    keys = ["event", "statistic", "lot", "rig"]
+    out = (u.groupby(keys, sort=False)
+           .agg(n=("n", "sum"), s1=("s1", "sum"), site=("site", "first"), first=("first", "min"),
+                last=("last", "max"), reference=("reference", "all"))
+           .reset_index())
+    out["mean"] = out["s1"] / out["n"]
+    return out.drop(columns="s1")
+
+
+def _chart(points: pd.DataFrame, reference_lots, rules: str):
+    from analysis.monitor import lot_chart
+
+    p = points.assign(value=np.exp(points["mean"].astype(float)))
+    return lot_chart(p, reference_lots=reference_lots, log=True, rules=rules)
+
+
+def _polish(z: pd.DataFrame):
+    """Median polish of the lot x rig table of cell departures: (lot effects, rig effects, residual table)."""
+    from analysis.monitor.polish import median_polish
+
+    table = z.pivot_table(index="lot", columns="rig", values="z", aggfunc="first")
+    mp = median_polish(table.to_numpy(dtype=float))
+    lot_eff = pd.Series(np.asarray(mp.row_effects, dtype=float) + 0.0, index=table.index)
+    rig_eff = pd.Series(np.asarray(mp.col_effects, dtype=float), index=table.columns)
+    resid = pd.DataFrame(np.asarray(mp.residuals, dtype=float), index=table.index, columns=table.columns)
+    return float(mp.overall), lot_eff, rig_eff, resid
+
+
+#: Run rules that look at a sequence of points (rule 1, a single point beyond 3σ, is not a change over time).
+SEQUENCE_RULES = ("we2", "we3", "we4") + tuple(f"nelson{i}" for i in range(2, 9))
+
+
+def _cell_causes(chart, units_here: pd.DataFrame, unit_signal: dict, *, reference_lots) -> dict:
+    """Cause and evidence of every non-reference cell of one (event, statistic) chart, keyed (lot, rig), with the
+    lots and rigs found to be causes."""
+    pts = chart.points
+    sigma, centre = chart.sigma, chart.centre
+    if not (math.isfinite(sigma) and sigma > 0):
+        return {}
+    z = pts.assign(z=(pts["y"].astype(float) - centre) / sigma)
+    overall, lot_eff, rig_eff, resid = _polish(z[np.isfinite(z["z"])])
+    new = z[~z["lot"].isin(set(reference_lots))]
+    lot_cause: dict[str, dict] = {}
+    for lot, g in new.groupby("lot", sort=False):
+        m = int(g["rig"].nunique())
+        departing = sorted(g.loc[g["z"] > DEPART_SIGMAS, "rig"])
+        effect = float(lot_eff.get(lot, 0.0)) + overall
+        if m >= 2 and len(departing) >= max(2, math.ceil(m / 2)) and effect > DEPART_SIGMAS:
+            lot_cause[lot] = {"rigs_departing": departing, "rigs": m, "lot_effect_sd": round(effect, 2)}
+    # A cell whose departure is carried by units that signal on their own is about those units, not its rig.
+    by_units: dict = {}
+    for r in new.itertuples(index=False):
+        if r.lot in lot_cause:
+            continue
+        here = units_here[(units_here["lot"] == r.lot) & (units_here["rig"] == r.rig)]
+        hot = [u for u in here["unit"] if unit_signal.get((r.lot, u))]
+        # Concentrated: a minority of the cell's units (one of two, up to a third of many) carries it.
+        if not hot or len(hot) > max(1, len(here) // 3):
+            continue
+        rest = here[~here["unit"].isin(hot)]
+        rest_n = float(rest["n"].sum()) if len(rest) else 0.0
+        rest_y = float((rest["n"] * rest["mean"]).sum() / rest_n) if rest_n else math.nan
+        if not math.isfinite(rest_y) or (rest_y - centre) / sigma <= DEPART_SIGMAS:
+            by_units[(r.lot, r.rig)] = {"units_signalling": hot, "units": int(len(here))}
+    rig_cause: dict[str, dict] = {}
+    for rig, g in new.groupby("rig", sort=False):
+        g = g.sort_values("first")
+        free = g[[lot not in lot_cause and (lot, rig) not in by_units for lot in g["lot"]]]
+        beyond_lot = [lot for lot in free["lot"] if _finite(resid.at[lot, rig]) is not None
+                      and resid.at[lot, rig] > RESIDUAL_SIGMAS]
+        ruled = [(lot, r) for lot, r in zip(free["lot"], free["rules"])
+                 if any(x in SEQUENCE_RULES for x in str(r).split(",") if x)]
+        effect = float(rig_eff.get(rig, 0.0))
+        if len(beyond_lot) >= 2 or effect > DEPART_SIGMAS or ruled:
+            rig_cause[rig] = {"lots_departing": beyond_lot, "run_rules": [f"{lot}: {r}" for lot, r in ruled],
+                              "rig_effect_sd": round(effect, 2), "lots": int(g["lot"].nunique())}
+    out: dict = {}
+    for r in new.itertuples(index=False):
+        ev = {"z": round(float(r.z), 2), "lot_effect_sd": round(float(lot_eff.get(r.lot, 0.0)) + overall, 2),
+              "rig_effect_sd": round(float(rig_eff.get(r.rig, 0.0)), 2)}
+        if r.lot in lot_cause:
+            out[(r.lot, r.rig)] = ("lot", {**ev, **lot_cause[r.lot]})
+        elif (r.lot, r.rig) in by_units:
+            out[(r.lot, r.rig)] = ("unit", {**ev, **by_units[(r.lot, r.rig)]})
+        elif r.rig in rig_cause:
+            out[(r.lot, r.rig)] = ("rig", {**ev, **rig_cause[r.rig]})
+        else:
+            out[(r.lot, r.rig)] = ("rig", {**ev, "units_signalling": [], "only_this_lot": True})
+    return {"cells": out, "lots": lot_cause, "rigs": rig_cause}
+
+
+def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, reference_lots: dict,
+           rules: str = "we") -> list[Decision]:
+    """Every signal at every level, with its suggested cause (the rules at the head of this section).
+
+    units: per (event, statistic, lot, rig, unit) rows with site, n (actuations that passed QC with a value),
+    mean (of the statistic's natural log), first, last (recording times). limits: {event: {statistic:
+    MeanLimits}}. flagged: one row per flagged actuation and event (actuation_id, event or None, statistics
+    (list of flag statistics, "qc:<check>" for quality checks), value, limit (of the strongest), site, rig, lot,
+    unit, recorded_at). reference_lots: {event: lots of its active model}.
+    """
+    out: list[Decision] = []
+    u = units.copy()
+    if len(u):
+        u["reference"] = [lot in set(reference_lots.get(e, ())) for e, lot in zip(u["event"], u["lot"])]
+    unit_cause: dict = {}  # (event, lot, unit) -> (cause, evidence) of a signalling unit
+    cell_cause: dict = {}  # (event, lot, rig) -> cause
+    per_unit: dict = {}  # (event, lot, unit) -> strongest (z, row, limit)
+    for (event, stat), g in (u.groupby(["event", "statistic"], sort=False) if len(u) else []):
+        lim = (limits.get(event) or {}).get(stat)
+        if lim is None:
+            continue
+        n = g["n"].to_numpy(dtype=float)
+        ucl = np.asarray(lim.ucl(n), dtype=float)
+        zs = (g["mean"].to_numpy(dtype=float) - lim.centre) / np.asarray(lim.sd(n), dtype=float)
+        for row, lim_y, z in zip(g.itertuples(index=False), ucl, zs):
+            if row.reference or not (np.isfinite(z) and row.mean > lim_y):
+                continue
+            k = (event, row.lot, row.unit)
+            if k not in per_unit or z > per_unit[k][0]:
+                per_unit[k] = (float(z), row, float(lim_y), stat)
+    unit_signal = {(e, lot, un): True for (e, lot, un) in per_unit}
+
+    for event in dict.fromkeys(u["event"]) if len(u) else []:
+        refs = reference_lots.get(event, ())
+        cells = cell_table(u[u["event"] == event])
+        best_cell: dict = {}
+        best_lot: dict = {}
+        found_lots: dict = {}
+        found_rigs: dict = {}
+        for stat in CHART_STATISTICS:
+            pts = cells[cells["statistic"] == stat]
+            if not len(pts):
+                continue
+            chart = _chart(pts, refs, rules)
+            here = u[(u["event"] == event) & (u["statistic"] == stat)]
+            sig = {(lot, un): True for (e, lot, un) in unit_signal if e == event}
+            causes = _cell_causes(chart, here, sig, reference_lots=refs)
+            if not causes:
+                continue
+            for lot, ev in causes["lots"].items():
+                found_lots.setdefault(lot, (stat, ev))
+            for rig, ev in causes["rigs"].items():
+                found_rigs.setdefault(rig, (stat, ev))
+            p = chart.points
+            for r in p[p["signal"] & ~p["reference"]].itertuples(index=False):
+                z = (float(r.y) - chart.centre) / chart.sigma
+                if (r.lot, r.rig) not in best_cell or z > best_cell[(r.lot, r.rig)][0]:
+                    cause, ev = causes["cells"].get((r.lot, r.rig), ("unit", {}))
+                    best_cell[(r.lot, r.rig)] = (z, stat, r, chart, cause, ev)
+            pooled = pts.groupby("lot", sort=False).apply(
+                lambda g: pd.Series({"n": g["n"].sum(), "mean": (g["n"] * g["mean"]).sum() / g["n"].sum(),
+                                     "first": g["first"].min(), "last": g["last"].max()}),
+                include_groups=False).reset_index()
+            pooled["rig"] = "all rigs"
+            lchart = _chart(pooled, refs, rules)
+            lp = lchart.points
+            for r in lp[lp["signal"] & ~lp["reference"]].itertuples(index=False):
+                z = (float(r.y) - lchart.centre) / lchart.sigma if lchart.sigma > 0 else math.inf
+                if r.lot not in best_lot or z > best_lot[r.lot][0]:
+                    best_lot[r.lot] = (z, stat, r, lchart)
+        for (lot, rig), (_z, stat, r, chart, cause, ev) in best_cell.items():
+            cell_cause[(event, lot, rig)] = cause
+            out.append(Decision(
+                "cell", event, stat, _finite(math.exp(r.y)), _finite(chart.to_display(chart.ucl)),
+                "beyond" if r.beyond else r.rules, r.site, rig, lot, None, None, cause, ev, r.first, r.last))
+        for lot in dict.fromkeys(list(found_lots) + list(best_lot)):
+            stat, ev = found_lots.get(lot, (None, {}))
+            z, stat2, r, lchart = best_lot.get(lot, (None, stat, None, None))
+            stat = stat or stat2
+            of_cells = {rg: c for (e, lt, rg), c in cell_cause.items() if e == event and lt == lot}
+            cause = "lot" if lot in found_lots else _majority(list(of_cells.values())) or "lot"
+            ev = {**ev, "cells": of_cells}
+            rule = ("across rigs" if lot in found_lots else "") + (
+                ("; " if lot in found_lots else "") + ("beyond" if r.beyond else r.rules) if r is not None else "")
+            cells_of = cells[(cells["lot"] == lot) & (cells["statistic"] == stat)]
+            out.append(Decision(
+                "lot", event, stat, _finite(math.exp(r.y)) if r is not None else None,
+                _finite(lchart.to_display(lchart.ucl)) if lchart is not None else None, rule, None, None, lot,
+                None, None, cause, {**ev, "pooled_z": None if z is None else round(float(z), 2)},
+                cells_of["first"].min() if len(cells_of) else None, cells_of["last"].max() if len(cells_of) else None))
+        for rig, (stat, ev) in found_rigs.items():
+            cells_of = cells[(cells["rig"] == rig) & (cells["statistic"] == stat)]
+            site = cells_of["site"].iloc[0] if len(cells_of) else None
+            rule = "across lots" if ev.get("lots_departing") else "run rule"
+            lots_hit = ev.get("lots_departing") or [s.split(":")[0] for s in ev.get("run_rules", [])]
+            hit = cells_of[cells_of["lot"].isin(lots_hit)]
+            out.append(Decision(
+                "rig", event, stat, None, None, rule, site, rig, None, None, None, "rig", ev,
+                hit["first"].min() if len(hit) else None, hit["last"].max() if len(hit) else None))
+    rig_of_cell = {}
+    for (event, lot, unit), (z, row, lim_y, stat) in per_unit.items():
+        cause = cell_cause.get((event, lot, row.rig))
+        if cause not in ("lot", "rig"):
+            lot_dec = any(d.level == "lot" and d.event == event and d.lot == lot and d.cause == "lot" for d in out)
+            cause = "lot" if lot_dec else "unit"
+        unit_cause[(event, lot, unit)] = cause
+        rig_of_cell[(event, lot, unit)] = row.rig
+        out.append(Decision(
+            "unit", event, stat, _finite(math.exp(row.mean)), _finite(math.exp(lim_y)), "beyond", row.site, row.rig,
+            lot, unit, None, cause, {"z": round(z, 2), "actuations": int(row.n)}, row.first, row.last))
+    for r in flagged.itertuples(index=False) if len(flagged) else []:
+        stats_ = list(r.statistics)
+        qc = sorted({s[3:] for s in stats_ if str(s).startswith("qc:")})
+        if qc:
+            cause, ev = "recording", {"checks": qc}
+        else:
+            cause = unit_cause.get((r.event, r.lot, r.unit)) or cell_cause.get((r.event, r.lot, r.rig))
+            via = "unit" if (r.event, r.lot, r.unit) in unit_cause else "cell" if cause else None
+            if cause is None:
+                cause = "unit"
+            ev = {"statistics": stats_, "via": via}
+        out.append(Decision(
+            "actuation", r.event if not qc else None, "qc:" + qc[0] if qc else str(stats_[0]), _finite(r.value),
+            _finite(r.limit), "quality check" if qc else "beyond", r.site, r.rig, r.lot, r.unit,
+            int(r.actuation_id), cause, ev, r.recorded_at, r.recorded_at))
+    return out
+
+
+def _majority(causes) -> str | None:
+    causes = [c for c in causes if c]
+    if not causes:
+        return None
+    return max(set(causes), key=causes.count)
+
+
+def evidence_words(d: Decision) -> str:
+    """The plain-language evidence of a decision (what the dashboard and the export show)."""
+    e = d.evidence or {}
+    what = {"event_spe_ratio": "event residual", "trajectory_distance": "trajectory distance",
+            "t2_ratio": "Hotelling T²", "spe_ratio": "SPE"}.get(d.statistic, d.statistic)
+    if d.cause == "recording":
+        return f"the recording failed its quality check(s): {', '.join(e.get('checks', []))}"
+    if d.level == "actuation":
+        via = {"unit": f"its unit {d.unit} signals too", "cell": f"its cell (lot {d.lot}, rig {d.rig}) signals",
+               None: f"neither unit {d.unit} nor lot {d.lot} on rig {d.rig} signals as a whole"}[e.get("via")]
+        return f"flagged on {', '.join(map(str, e.get('statistics', [])))}; {via}"
+    if d.level == "unit":
+        return (f"unit {d.unit}: mean {what} {d.value:.3g} over {e.get('actuations')} actuations, beyond its limit "
+                f"{d.limit:.3g} ({e.get('z')} SD)" + {"lot": f"; its lot {d.lot} departs as a whole",
+                                                     "rig": f"; rig {d.rig} departs", "unit": ""}[d.cause])
+    if d.level == "lot" and not e.get("rigs_departing"):
+        cells = e.get("cells") or {}
+        why = ("; its signalling cells point at " + ", ".join(f"rig {rg} ({c})" for rg, c in cells.items())
+               if cells else "; no single rig's cell signals")
+        return f"lot {d.lot}: the mean over its rigs is beyond the lot-by-lot limit ({what}){why}"
+    if d.cause == "lot" and e.get("rigs_departing"):
+        return (f"lot {d.lot} departs on {len(e['rigs_departing'])} of {e.get('rigs')} rigs "
+                f"({', '.join(e['rigs_departing'])}); lot effect {e.get('lot_effect_sd')} chart SD ({what})")
+    if d.level == "rig" or (d.cause == "rig" and not e.get("only_this_lot")):
+        parts = []
+        if e.get("lots_departing"):
+            parts.append(f"departs beyond its lots' own level in {', '.join(e['lots_departing'])}")
+        if e.get("run_rules"):
+            parts.append(f"run rules on its own sequence of lots ({'; '.join(e['run_rules'])})")
+        if not parts:
+            parts.append(f"rig effect {e.get('rig_effect_sd')} chart SD over its {e.get('lots')} lots")
+        return f"rig {d.rig} " + " and ".join(parts) + f" ({what})"
+    if d.cause == "unit":
+        return (f"lot {d.lot} on rig {d.rig}: the departure is carried by unit(s) "
+                f"{', '.join(e.get('units_signalling', []))} of {e.get('units')} ({what})")
+    if d.cause == "rig":
+        return (f"lot {d.lot} on rig {d.rig} departs ({e.get('z')} chart SD, {what}); the lot does not depart on "
+                "other rigs and no single unit carries it: look at the rig during this lot")
+    return f"{d.level} {d.lot or ''} {d.rig or ''}: {what} {d.rule}"

@@ -14,7 +14,7 @@ import pandas as pd
 import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
-from .labels import full, label, plain
+from .labels import full, label, plain, short
 
 __all__ = [
     "PALETTE", "apply_look", "empty_figure", "lot_chart_figure", "rig_distribution_figure", "rig_rates_figure",
@@ -83,10 +83,12 @@ def _jitter(ids, width=0.5):
 
 
 def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting: bool = False,
-                     rule_words: dict | None = None) -> go.Figure:
+                     rule_words: dict | None = None, stored: pd.DataFrame | None = None) -> go.Figure:
     """Lot-by-lot chart: one line per rig of per-lot points, the centre line and limits, signals ringed; behind
     them a thinned cloud of single actuations (flagged ones in the flag colour). A lot point's customdata is
-    ["lot", lot, rig]; an actuation's is ["actuation", id]."""
+    ["lot", lot, rig]; an actuation's is ["actuation", id]. stored: the store's signals for these points (rows:
+    lot, rig — "all rigs" for lot-level ones —, cause, evidence); when given, they are what is ringed, with
+    their cause, instead of the chart's own limit and run-rule checks."""
     c = _c(meeting)
     p = chart.points
     if not len(p):
@@ -127,7 +129,21 @@ def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting:
                   for lt, n, nf, ref in zip(g["lot"], g["n_all"], g["n_flagged"], g["reference"])],
             hovertemplate="%{text}<br>%{y:.3g}<extra></extra>",
         ))
-    sig = p[p["signal"]]
+    if stored is not None:
+        marks = p.merge(stored[["lot", "rig", "cause", "evidence"]], on=["lot", "rig"], how="inner")
+        if len(marks):
+            fig.add_trace(go.Scatter(
+                x=marks["lot"].map(pos).to_numpy(dtype=float) + marks["rig"].map(offs).to_numpy(dtype=float),
+                y=marks["value"].to_numpy(dtype=float), mode="markers", name="stored signal",
+                marker=dict(size=c["marker"] * 2.4, color="rgba(0,0,0,0)",
+                            line=dict(color=c["flag"], width=c["line"] + 1)),
+                customdata=np.column_stack([np.full(len(marks), "lot"), marks["lot"].astype(str),
+                                            marks["rig"].astype(str)]),
+                text=[f"suggested cause: {plain(cause)} — {plain(short(str(ev), 400))}"
+                      for cause, ev in zip(marks["cause"], marks["evidence"])],
+                hovertemplate="%{text}<extra>signal</extra>",
+            ))
+    sig = p[p["signal"]] if stored is None else p.iloc[0:0]
     if len(sig):
         words = rule_words or {}
         fig.add_trace(go.Scatter(

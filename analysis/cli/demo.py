@@ -1,7 +1,7 @@
 """`harken demo` (what `make demo` runs): generate the demo scenario, ingest it with the worker, build the
 reference models, and summarise what the store holds against the generator's ground truth: flags per condition,
-rig and lot, the lot-by-lot charts with their suggested causes, the units beyond their limit, and a PLS1
-calibration of the carrier size from the release sound."""
+rig and lot, the stored lot, rig, cell and unit signals with their suggested causes, the validation report
+(`harken validate` on the ground truth), and a PLS1 calibration of the carrier size from the release sound."""
 
 from __future__ import annotations
 
@@ -15,10 +15,9 @@ import pandas as pd
 
 from ..errors import AnalysisError
 from ..io import read_sidecar
-from ..monitor import LotChart, lot_chart
-from ..triage import cell_causes
+from ..validation import report_lines, validate
 
-__all__ = ["register", "run", "run_demo", "lot_chart_lines", "unit_summary", "carrier_calibration"]
+__all__ = ["register", "run", "run_demo", "signal_lines", "carrier_calibration"]
 
 
 def register(sub) -> None:
@@ -50,7 +49,7 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
     """
     from ..demo import generate
     from ..references import build_reference
-    from ..store import Filters, Store, queries
+    from ..store import Store
     from ..worker import ingest_paths
 
     out = Path(out)
@@ -71,6 +70,11 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
 
     truth = pd.read_csv(inbox / "ground_truth.csv")
     truth["reference"] = truth["reference"].astype(str).str.lower().isin(["true", "1"])
+    if "cause" not in truth:  # recordings generated before the truth table named causes
+        from ..demo.generator import FAULT_CAUSES
+
+        truth["cause"] = truth["condition"].map(FAULT_CAUSES).fillna("")
+    truth["cause"] = truth["cause"].fillna("")
     profiles = sorted(set(read_sidecar(inbox / f).profile for f in truth["file"].head(20)))
     if len(profiles) != 1:
         raise AnalysisError(f"{inbox}: the demo expects one device profile, found {profiles}")
@@ -96,13 +100,8 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
                  f"from lots {', '.join(ref_lots)}")
         exported = store.export_actuations()
         levels = store.band_levels(profiles[0], "dose_release")
-        event_names = list(dict.fromkeys(store.models()["event"]))
-        charts = {}
-        with store.read() as conn:  # the Lots view's chart: the store's lot points and the one lot-chart rule
-            for event in event_names:
-                points = queries.lot_points(conn, "event_spe_ratio", event, Filters(profile=profiles[0]))
-                charts[event] = lot_chart(points, reference_lots=queries.reference_lots(conn, profiles[0], event),
-                                          log=True, rules="we")
+        signals = store.signals(profile=profiles[0])
+    report = validate(truth, exported, signals, reference_lots=ref_lots, where=str(inbox / "ground_truth.csv"))
 
     # The store keeps each file's name relative to the folder it was ingested from: the ground truth's `file`.
     table = exported.merge(truth[["file", "condition", "reference"]], on="file", how="inner", validate="one_to_one")
@@ -131,12 +130,12 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
     pivot = table.pivot_table(index="rig", columns="lot", values="flagged", aggfunc="sum", fill_value=0)
     echo(pivot.astype(int).to_string())
     echo("")
-    for event in event_names:
-        for line in lot_chart_lines(charts[event], event):
-            echo(line)
-    echo("")
-    for line in unit_summary(table, event_names):
+    for line in signal_lines(signals):
         echo(line)
+    echo("")
+    echo("validation against the ground truth (harken validate --truth ground_truth.csv):")
+    for line in report_lines(report):
+        echo("  " + line)
     if calibration is not None:
         echo("")
         echo(f"carrier size from the dose-release sound (PLS1 on the event's mean band levels, "
@@ -150,78 +149,21 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
     return table
 
 
-def lot_chart_lines(chart: LotChart, event: str) -> list[str]:
-    """The demo's words for one event's lot-by-lot chart of the event residual and what its signals suggest.
-
-    Each point is the mean log event residual (the residual of the event's mean spectrum over its reference
-    median) of a lot's actuations on one rig: a lasting change that single actuations cannot show moves the mean
-    of a lot. Limits and run rules are analysis.monitor.lot_chart's (the Lots view's); the causes are
-    analysis.triage.cell_causes' (lot, then rig, then the cell's units).
-    """
-    pts = chart.points
-    ref = pts[pts["reference"] & np.isfinite(pts["y"].astype(float))] if len(pts) else pts
-    if not np.isfinite(chart.ucl) or not len(ref):
-        return [f"{event}: too few reference points ({len(ref)}) for lot-by-lot limits"]
-    lines = [f"lot-by-lot chart, {event} (mean log event residual per lot and rig; UCL {chart.ucl:.2f} from "
-             f"{len(ref)} reference points; Western Electric rules per rig):"]
-    new = pts[~pts["reference"]]
-    for c in cell_causes(new):
-        if c.cause == "lot":
-            lines.append(f"  lot {c.lot}: signals on {len(c.cells)} of {(new['lot'] == c.lot).sum()} rigs "
-                         "-> suggests the lot")
-        elif c.cause == "rig":
-            lines.append(f"  rig {c.rig}: signals on lots {', '.join(lot for lot, _ in c.cells)} -> suggests the rig")
-        else:
-            row = new[(new["lot"] == c.lot) & (new["rig"] == c.rig)].iloc[0]
-            why = "beyond the limit" if row["beyond"] else f"run rule {row['rules']}"
-            lines.append(f"  rig {c.rig}, lot {c.lot}: {why} -> look at its units")
-    if len(lines) == 1:
-        lines.append("  no lot or rig beyond the limits")
-    return lines
-
-
-def unit_points(table: pd.DataFrame, event: str) -> pd.DataFrame:
-    """Per unit: mean log event residual of one event over its actuations that passed QC, with its labels."""
-    col = f"{event}.event_spe_ratio"
-    data = table[table["qc_failed"].fillna("").eq("") & table[col].notna() & (table[col] > 0)].copy()
-    data["log_ratio"] = np.log(data[col].astype(float))
-    return (data.groupby("unit", sort=False)
-            .agg(value=("log_ratio", "mean"), n=("log_ratio", "size"), reference=("reference", "all"),
-                 lot=("lot", "first"), rig=("rig", "first"),
-                 condition=("condition", lambda c: ",".join(sorted(set(c)))))
-            .reset_index())
-
-
-def unit_summary(table: pd.DataFrame, events) -> list[str]:
-    """Units whose mean event residual is beyond an individuals-chart limit from the reference units.
-
-    A damaged unit changes every one of its actuations a little; the mean over its actuations shows what single
-    actuations hide. Limits: centre ± 3·MR̄/d2 of the reference units' points (NIST e-Handbook 6.3.2.2).
-    """
-    from ..monitor import fit_individuals_limits
-
-    lines = ["units beyond their limit (mean log event residual per unit; limits from the reference units):"]
-    caught: dict[str, set] = {}
-    totals: dict[str, int] = {}
-    for event in events:
-        if f"{event}.event_spe_ratio" not in table:
-            continue
-        pts = unit_points(table, event)
-        ref = pts[pts["reference"]]
-        if len(ref) < 3:
-            continue
-        limits = fit_individuals_limits(ref["value"].to_numpy())
-        new = pts[~pts["reference"]]
-        for cond, grp in new.groupby("condition"):
-            totals[cond] = len(grp)
-        hit = new[new["value"] > limits.ucl]
-        for row in hit.itertuples():
-            caught.setdefault(row.condition, set()).add(row.unit)
-        if len(hit):
-            lines.append(f"  {event}: " + ", ".join(f"{u} ({r}, {lot})" for u, r, lot in
-                                                  zip(hit["unit"], hit["rig"], hit["lot"])))
-    lines.append("  units caught by condition (ground truth; a unit is labelled by its actuations' conditions): " +
-                 ", ".join(f"{c} {len(caught.get(c, ()))} of {n}" for c, n in sorted(totals.items())))
+def signal_lines(signals: pd.DataFrame) -> list[str]:
+    """The demo's words for the stored signals above the actuation level: lots and rigs in full, cells and units
+    counted by cause (every one of them is in `harken export signals`)."""
+    wide = signals[signals["level"].isin(["lot", "rig"])]
+    lines = ["signals in the store (lots and rigs; suggested cause and evidence):"]
+    for r in wide.itertuples(index=False):
+        where = f"lot {r.lot}" if r.level == "lot" else f"rig {r.rig}"
+        lines.append(f"  {where}, {r.event} -> {r.cause}: {r.evidence}")
+    if not len(wide):
+        lines.append("  no lot or rig signals")
+    for level in ("cell", "unit"):
+        part = signals[signals["level"] == level]
+        counts = part["cause"].value_counts()
+        lines.append(f"  {level} signals: {len(part)}" + (" (" + ", ".join(f"{c} {n}" for c, n in counts.items())
+                                                        + ")" if len(part) else ""))
     return lines
 
 

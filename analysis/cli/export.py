@@ -1,4 +1,4 @@
-"""``harken export actuations|quarantine``: tables of the store as CSV or parquet."""
+"""``harken export actuations|signals|quarantine``: tables of the store as CSV or parquet."""
 
 from __future__ import annotations
 
@@ -18,6 +18,12 @@ def register(sub) -> None:
     e.add_argument("--format", choices=("csv", "parquet"), default="csv")
     e.add_argument("--out", required=True, metavar="FILE")
     e.set_defaults(func=export)
+    s = esub.add_parser("signals", help="one row per signal (actuation, unit, cell, lot, rig) with its cause")
+    add_store(s)
+    s.add_argument("--format", choices=("csv", "parquet"), default="csv")
+    s.add_argument("--out", required=True, metavar="FILE")
+    s.add_argument("--all", action="store_true", help="also the signals no longer active")
+    s.set_defaults(func=export)
     q = esub.add_parser("quarantine", help="quarantined files with their reasons")
     add_store(q)
     q.add_argument("--format", choices=("csv", "parquet"), default="csv")
@@ -40,7 +46,12 @@ def export(args) -> int:
     from ..store import Store
 
     with Store.open(args.store, create=False) as store:
-        df = store.export_actuations() if args.export_what == "actuations" else store.quarantine()
+        if args.export_what == "actuations":
+            df = store.export_actuations()
+        elif args.export_what == "signals":
+            df = store.signals(active_only=not args.all)
+        else:
+            df = store.quarantine()
     if args.out is None:
         print(df[["file", "reason"]].to_string(index=False) if len(df) else "no quarantined files")
         return 0

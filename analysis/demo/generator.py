@@ -32,14 +32,18 @@ from analysis.demo import physics, synth
 from analysis.demo.scenario import Fault, Scenario, load_scenario
 from analysis.errors import ScenarioError
 
-__all__ = ["GenerationSummary", "PlannedActuation", "GROUND_TRUTH_COLUMNS", "plan_scenario", "generate"]
+__all__ = ["GenerationSummary", "PlannedActuation", "GROUND_TRUTH_COLUMNS", "FAULT_CAUSES", "plan_scenario", "generate"]
 
 GROUND_TRUTH_COLUMNS = (
-    "file", "site", "rig", "lot", "unit", "actuation", "recorded_at", "condition", "reference", "fault_start",
+    "file", "site", "rig", "lot", "unit", "actuation", "recorded_at", "condition", "cause", "reference", "fault_start",
     "severity", "severity_unit", "mains_hz", "temperature_c", "flow_rel", "cavity_volume_cm3", "neck_radius_mm",
     "neck_length_mm", "helmholtz_hz", "carrier_d50_um", "impact_centre_hz", "marker_1_s", "click_onset_s",
     "marker_2_s", "burst_onset_s", "impacts", "clip_gain", "dropout_start_s", "dropout_s", "peak_dbfs",
 )
+
+#: Where each fault kind lives (the true cause `harken validate` checks triage against; "" for normal).
+FAULT_CAUSES = {"coarse_carrier": "lot", "damaged_cavity": "unit", "rig_squeal": "rig", "clipping": "recording",
+                "dropout": "recording", "missing_marker": "recording", "normal": ""}
 
 SEVERITY_UNITS = {
     "coarse_carrier": "% impact centre",
@@ -292,7 +296,8 @@ def _truth_row(p: PlannedActuation, t: dict) -> dict:
     pa = p.params
     return {
         "file": p.file, "site": p.site, "rig": p.rig, "lot": p.lot, "unit": p.unit, "actuation": p.actuation,
-        "recorded_at": p.recorded_at, "condition": p.condition, "reference": _fmt(p.reference),
+        "recorded_at": p.recorded_at, "condition": p.condition, "cause": FAULT_CAUSES[p.condition],
+        "reference": _fmt(p.reference),
         "fault_start": p.fault_start,
         "severity": _fmt(t["clip_gain"] if p.condition == "clipping"
                          else (1000.0 * t["dropout_s"] if p.condition == "dropout" else p.severity), 2),

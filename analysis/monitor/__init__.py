@@ -25,6 +25,7 @@ from analysis.monitor.charts import (
     xbar_s_chart,
 )
 from analysis.monitor.contributions import Contributions, band_contributions
+from analysis.monitor.levels import GROUP_STATISTICS, MeanLimits, fit_mean_limits, group_limits_from_model
 from analysis.monitor.limits import (
     ControlConstants,
     control_constants,
@@ -42,6 +43,7 @@ from analysis.monitor.model import (
     ReferenceModel,
 )
 from analysis.monitor.pls import OPLS, PLS1, CrossValidationResult, cross_validate
+from analysis.monitor.polish import MedianPolish, median_polish, polish_frame
 from analysis.monitor.precision import Precision, precision_from_groups
 from analysis.monitor.rules import NELSON, RULES, WESTERN_ELECTRIC, RuleViolation, check_rules
 
@@ -59,6 +61,9 @@ __all__ = [
     "CusumLimits", "CusumChart", "fit_cusum_limits", "cusum_chart",
     # the lot-by-lot chart, precision across rigs
     "LotChart", "lot_chart", "RULE_SETS", "MIN_LIMIT_POINTS", "Precision", "precision_from_groups",
+    # group means (units), robust two-way decomposition
+    "MeanLimits", "fit_mean_limits", "group_limits_from_model", "GROUP_STATISTICS",
+    "MedianPolish", "median_polish", "polish_frame",
     # run rules
     "RuleViolation", "RULES", "WESTERN_ELECTRIC", "NELSON", "check_rules",
     # regression

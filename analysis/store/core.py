@@ -19,6 +19,7 @@ from sqlalchemy.pool import StaticPool
 from . import queries, writes
 from .errors import StoreError
 from .migrate import upgrade as upgrade_schema
+from .signals import refresh_signals
 from .types import Claim
 
 __all__ = ["Store", "DEFAULT_STORE_FILE", "default_store_url", "safe_url"]
@@ -231,10 +232,18 @@ class Store:
             return writes.insert_model(conn, profile=profile, event=event, model_json=text, model_npz=blob,
                                        meta=meta, model=model, created_by=created_by, activate=activate)
 
-    def insert_scores(self, model_id: int, event: str, items) -> None:
-        """Write scores of one event under one model: items [(actuation_id, ScoredEvent)], in one transaction."""
+    def insert_scores(self, model_id: int, event: str, items, *, refresh_profile: str | None = None) -> None:
+        """Write scores of one event under one model: items [(actuation_id, ScoredEvent)], in one transaction
+        (with the signals of ``refresh_profile`` brought up to date in it, when given)."""
         with self.write() as conn:
             writes.insert_scores(conn, model_id, event, list(items))
+            if refresh_profile is not None:
+                refresh_signals(conn, refresh_profile)
+
+    def refresh_signals(self, profile: str) -> dict:
+        """Recompute and store every signal of ``profile`` (analysis.store.signals); returns counts."""
+        with self.write() as conn:
+            return refresh_signals(conn, profile)
 
     # ------------------------------------------------------------------ reads (analysis.store.queries)
     # The common reads, each in its own read transaction; ``with store.read() as conn`` and the functions of
@@ -258,6 +267,11 @@ class Store:
     def export_actuations(self):
         with self.read() as conn:
             return queries.export_actuations(conn)
+
+    def signals(self, *, profile: str | None = None, active_only: bool = True, levels=None):
+        """Stored signals (analysis.store.queries.signals)."""
+        with self.read() as conn:
+            return queries.signals(conn, profile=profile, active_only=active_only, levels=levels)
 
     def flag_summary(self, *, by: tuple[str, ...] = ("rig", "lot")):
         with self.read() as conn:

@@ -227,6 +227,40 @@ verdicts = Table(
     Index("ix_verdicts_flag", "flag_id"),
 )
 
+#: One row per raised signal at any level (analysis.triage.LEVELS), kept up to date by the worker and by
+#: re-scoring: a signal raised again keeps its row (last_seen moves); one no longer raised stays, inactive.
+#: key: what it is about (level|event|lot|rig|unit|actuation), unique per profile. Names are kept as text, as
+#: shown and exported; first/last: the recording times (UTC) of the actuations behind it.
+signals = Table(
+    "signals", metadata,
+    Column("id", Integer, primary_key=True),
+    Column("profile", Text, nullable=False),
+    Column("key", Text, nullable=False),
+    Column("level", String(16), nullable=False),
+    Column("event", Text),
+    Column("statistic", String(64), nullable=False),
+    Column("value", Float),
+    Column("limit_value", Float),
+    Column("rule", Text),
+    Column("site", Text),
+    Column("rig", Text),
+    Column("lot", Text),
+    Column("unit", Text),
+    Column("actuation_id", Integer, ForeignKey("actuations.id")),
+    Column("cause", String(16), nullable=False),
+    Column("evidence", Text, nullable=False),  # in words
+    Column("evidence_json", Text, nullable=False),  # the same as data
+    Column("model_version", Integer),
+    Column("first", DateTime),
+    Column("last", DateTime),
+    Column("first_seen", DateTime, nullable=False),
+    Column("last_seen", DateTime, nullable=False),
+    Column("active", Boolean, nullable=False),
+    UniqueConstraint("profile", "key", name="uq_signals_key"),
+    Index("ix_signals_active", "active", "level", "profile"),
+    Index("ix_signals_actuation", "actuation_id"),
+)
+
 #: Append-only: the store's code only ever inserts here.
 audit_log = Table(
     "audit_log", metadata,

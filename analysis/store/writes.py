@@ -33,6 +33,7 @@ from .schema import (
     utc_now,
     verdicts,
 )
+from .signals import refresh_signals
 from .types import VERDICTS, Analysed, Claim
 
 __all__ = [
@@ -211,6 +212,9 @@ def commit_analyses(conn, cache, items: list[Analysed], *, worker) -> list[int |
         conn.execute(flags.insert(), flag_rows)
     for (model_id, event), scored in by_model.items():
         insert_scores(conn, model_id, event, scored)
+    # The decisions at every level move with each batch, in the same transaction as the actuations behind them.
+    for profile in sorted({it.result.profile for it in keep}):
+        refresh_signals(conn, profile)
     got = dict(zip((it.recording_id for it in keep), act_ids))
     return [got.get(it.recording_id) for it in items]
 

@@ -1,5 +1,7 @@
-"""Lots: lot-by-lot control charts of any per-actuation statistic, per rig or pooled, with limits and run-rule
-signals; clicking an actuation opens it, clicking a lot point lists the lot's actuations."""
+"""Lots: lot-by-lot control charts of any per-actuation statistic, per rig or pooled, with limits; the signals
+ringed are the store's (with their suggested cause) where the store keeps signals for the statistic, else this
+chart's own limit and run-rule checks; clicking an actuation opens it, clicking a lot point lists the lot's units
+against their limits and its actuations."""
 
 from __future__ import annotations
 
@@ -9,7 +11,7 @@ from dash import Input, Output, dcc, html
 
 from analysis.monitor import RULE_SETS, RULES, lot_chart
 from analysis.store import Filters, queries, statistic
-from analysis.triage import actuation_state
+from analysis.triage import CHART_STATISTICS, actuation_state
 
 from .. import figures
 from ..cache import cached_query
@@ -50,18 +52,34 @@ def lots_chart_data(store, stat_key: str, event: str, filters: Filters, *, by_ri
     return chart, cl, stat
 
 
-def chart_summary(chart, stat) -> str:
+def stored_marks(store, stat_key: str, event: str, profile: str | None, *, by_rig: bool, rules: str):
+    """The store's active cell signals (per rig) or lot signals (pooled, rig "all rigs") of ``event`` for the
+    chart to ring, or None when the store keeps no signals for this statistic and rule set (the chart then
+    rings its own checks)."""
+    if stat_key not in CHART_STATISTICS or rules != "we":
+        return None
+    with store.read() as conn:
+        sig = queries.signals(conn, profile=profile, levels=("cell",) if by_rig else ("lot",))
+    sig = sig[(sig["event"] == event) & (sig["statistic"] == stat_key)].copy()
+    if not by_rig:
+        sig["rig"] = "all rigs"
+    return sig
+
+
+def chart_summary(chart, stat, stored=None) -> str:
     """One sentence under the chart: the limits, what they came from, and the signals."""
     if chart.points.empty:
         return "No lots in this selection."
-    sig = chart.points[chart.points["signal"]]
+    sig = chart.points[chart.points["signal"]] if stored is None else \
+        chart.points.merge(stored[["lot", "rig"]], on=["lot", "rig"])
     lim = "no limits" if chart.ucl != chart.ucl else (
         f"centre {fmt(chart.to_display(chart.centre))}, limits {fmt(chart.to_display(chart.lcl))} – "
         f"{fmt(chart.to_display(chart.ucl))}")
     where = ", ".join(f"lot {short(r.lot)} on {short(r.rig)}" for r in sig.itertuples()) or "none"
     scale = " (on a log scale: the lot's geometric mean)" if chart.log else " (the lot's mean)"
+    whose = "stored signals" if stored is not None else "Signals of this chart's checks"
     return (f"{stat.label}{scale}: {lim}, fitted to {chart.limits_from}. "
-            f"Signals ({len(sig)}): {where}.")
+            f"{whose[0].upper() + whose[1:]} ({len(sig)}): {where}.")
 
 
 def layout(ctx, q: dict):
@@ -109,8 +127,10 @@ def register(app, ctx):
         f = filters_from(profile, sites_, rigs_, start, end)
         chart, cl, st = lots_chart_data(ctx.store, stat, event, f, by_rig=group != "pooled", rules=rules or "we",
                                         cloud="on" in (cloud or []), cache=ctx.drill_cache)
-        fig = figures.lot_chart_figure(chart, st, cloud=cl, meeting=bool(meeting), rule_words=dict(RULES))
-        return fig, chart_summary(chart, st)
+        stored = stored_marks(ctx.store, stat, event, f.profile, by_rig=group != "pooled", rules=rules or "we")
+        fig = figures.lot_chart_figure(chart, st, cloud=cl, meeting=bool(meeting), rule_words=dict(RULES),
+                                       stored=stored)
+        return fig, chart_summary(chart, st, stored)
 
     # A click on a single actuation navigates the way a dcc.Link does (push the address, tell dcc.Location);
     # a click on a lot point lists the lot below the chart.
@@ -134,19 +154,36 @@ def register(app, ctx):
         Output("lots-selected", "data"), Input("lots-chart", "clickData"), prevent_initial_call=True,
     )
 
-    @app.callback(Output("lots-detail", "children"), Input("lots-selected", "data"), Input("lots-group", "value"))
+    @app.callback(Output("lots-detail", "children"), Input("lots-selected", "data"), Input("lots-group", "value"),
+                  Input("lots-profile", "value"), Input("lots-event", "value"))
     @guarded("children")
-    def show_lot(selected, group):
-        return lot_detail(ctx.store, selected)
+    def show_lot(selected, group, profile, event):
+        return lot_detail(ctx.store, selected, profile=profile, event=event)
 
 
-def lot_detail(store, selected):
+def units_block(units, lot: str, rig: str | None):
+    """Each unit of the lot (on the rig) against its limit: the mean event residual over its actuations."""
+    if units is None or not len(units):
+        return html.P("No unit limits for this event (build a reference model to get them).", className="muted",
+                      id="lots-units")
+    units = units.assign(state=["beyond its limit" if s else "within" for s in units["signal"]])
+    return html.Div([
+        html.H4(f"Units of lot {short(lot)}" + (f" on {short(rig)}" if rig else "")
+                + ": mean event residual (× reference median) against each unit's limit"),
+        table(units, [("unit", "Unit"), ("rig", "Rig"), ("n", "Actuations"), ("value", "Mean", fmt),
+                      ("limit", "Limit", fmt), ("state", "State")], id="lots-units",
+              row_class=lambda r: "row-flagged" if r["signal"] else None),
+    ])
+
+
+def lot_detail(store, selected, *, profile=None, event=None):
     if not selected:
-        return html.P("Click a lot point to list its actuations here.", className="muted")
+        return html.P("Click a lot point to list its units and actuations here.", className="muted")
     lot, _, rig = str(selected).partition("|")
     rig_filter = None if rig in ("", "all rigs") else rig
     with store.read() as conn:
         df = queries.lot_actuations(conn, lot, rig=rig_filter)
+        units = queries.units_table(conn, profile, event, lot=lot, rig=rig_filter) if profile and event else None
     if df.empty:
         return html.P(f"No actuations of lot {short(lot)}.")
     df["state"] = [actuation_state(passed_qc=bool(p), n_model_flags=int(n), n_qc_flags=0)
@@ -156,6 +193,7 @@ def lot_detail(store, selected):
                 + f": {len(df)} actuations"),
         html.P(dcc.Link("Show this lot's score trajectories", href=f"/trajectories?lots={quote(lot)}",
                         id="lots-detail-trajectories")),
+        units_block(units, lot, rig_filter),
         table(df, [("actuation_id", "Actuation"), ("unit", "Unit"), ("actuation", "No."), ("rig", "Rig"),
                    ("recorded_at", "Recorded"), ("state", "State"), ("n_flags", "Flags")],
               id="lots-detail-table", link=("actuation_id", lambda r: f"/actuation/{r['actuation_id']}"),

@@ -1,5 +1,7 @@
-"""Today: the latest recordings of every rig with their state, refreshing by itself; each flag in plain words
-with its suggested cause (recording / rig / lot / unit), and the recordings that could not be analysed."""
+"""Today: the active signals of units, cells, lots and rigs with their causes and next steps (also when no
+single actuation flagged); the latest recordings of every rig with their state, refreshing by itself; each flag
+in plain words with its suggested cause (recording / rig / lot / unit, from the stored signals), and the
+recordings that could not be analysed."""
 
 from __future__ import annotations
 
@@ -25,6 +27,8 @@ URL_STATE = [("per_rig", "today-per-rig", "value")]
 PER_RIG_CHOICES = (5, 10, 20, 50)
 #: Flag lines shown per actuation (the rest are on its own page).
 MAX_LINES = 3
+#: Signals above the actuation level listed (the widest level first).
+MAX_SIGNALS = 30
 
 
 def today_data(store, *, per_rig: int = 10) -> dict:
@@ -36,11 +40,18 @@ def today_data(store, *, per_rig: int = 10) -> dict:
         quar = queries.recent_quarantine(conn)
         flagged = rows[rows["actuation_id"].isin(set(fl["actuation_id"]))]
         evidence = queries.triage_evidence(conn, sorted(set(flagged["lot"])), sorted(set(flagged["rig"])))
+        wide = queries.signals(conn, levels=("lot", "rig", "cell", "unit"))
+        stored = queries.signals(conn, levels=("actuation",))
+        stored = stored[stored["actuation_id"].isin(set(flagged["actuation_id"]))]
     rows = rows.copy()
     rows["state"] = [actuation_state(passed_qc=bool(p), n_model_flags=int(m), n_qc_flags=int(q))
                      for p, m, q in zip(rows["passed_qc"], rows["n_model_flags"], rows["n_qc_flags"])]
     causes = {}
+    for aid, g in stored.groupby("actuation_id"):  # the stored decision, when the store has one
+        causes[aid] = (g["cause"].iloc[0], "; ".join(dict.fromkeys(g["evidence"])))
     for aid, g in fl.groupby("actuation_id"):
+        if aid in causes:
+            continue
         r = rows[rows["actuation_id"] == aid].iloc[0]
         causes[aid] = suggest_cause(g["statistic"].tolist(), lot=r["lot"], rig=r["rig"], evidence=evidence)
     rows["cause"] = rows["actuation_id"].map(lambda a: causes.get(a, ("", ""))[0])
@@ -51,7 +62,39 @@ def today_data(store, *, per_rig: int = 10) -> dict:
     fl["because"] = fl["actuation_id"].map(lambda a: causes[a][1])
     counts = rows["state"].value_counts().to_dict()
     counts["quarantined"] = len(quar)
-    return {"rows": rows, "flags": fl, "quarantine": quar, "counts": counts}
+    counts["signals"] = len(wide)
+    return {"rows": rows, "flags": fl, "quarantine": quar, "counts": counts, "signals": wide}
+
+
+_LEVEL_WORDS = {"lot": "Lot", "rig": "Rig", "cell": "Lot on a rig", "unit": "Unit"}
+
+
+def _where(r) -> str:
+    parts = []
+    for key, word in (("lot", "lot"), ("rig", "rig"), ("unit", "unit"), ("site", "site")):
+        v = r.get(key)
+        if isinstance(v, str) and v:
+            parts.append(f"{word} {short(v)}")
+    return " · ".join(parts)
+
+
+def render_signals(sig) -> html.Div:
+    """The active signals above the actuation level: level, where, event, cause, evidence and next step."""
+    if not len(sig):
+        return html.P("No unit, lot or rig signals.", id="today-signals")
+    items = []
+    for _, r in sig.head(MAX_SIGNALS).iterrows():
+        cause = r["cause"] if r["cause"] in NEXT_STEP else "unit"
+        items.append(html.Li(className=f"flag-item signal-item cause-{cause}", children=[
+            html.Div([html.Strong(f"{_LEVEL_WORDS.get(r['level'], r['level'])}: "), html.Span(_where(r)),
+                      html.Span(f" · {short(r['event'] or '')} · since {r['first']}", className="muted")]),
+            html.Div(short(r["evidence"], 400)),
+            html.Div([html.Strong(f"Suggested cause: {cause}"),
+                      html.Span(f". Next: {NEXT_STEP[cause]}.", className="muted")]),
+        ]))
+    more = [html.P(f"... and {len(sig) - MAX_SIGNALS} more (harken export signals)", className="muted")] \
+        if len(sig) > MAX_SIGNALS else []
+    return html.Div([html.Ul(items, id="today-signals", className="flag-list")] + more)
 
 
 
@@ -91,6 +134,9 @@ def render_today(data: dict) -> html.Div:
         html.P("No recording was quarantined.", id="today-quarantine")
     return html.Div([
         card(badges, html.P(f"Updated {datetime.now(UTC).strftime('%H:%M:%S')} UTC.", className="muted")),
+        card(html.H2(f"Signals ({counts.get('signals', 0)})"),
+             html.P("Units, lots on a rig, lots and rigs that depart from the reference as a whole, even when no "
+                    "single actuation flagged.", className="muted"), render_signals(data.get("signals", []))),
         card(html.H2("Flags"), flags_block),
         card(html.H2("Quarantined recordings"), html.P("These could not be analysed; the reason says why.",
                                                         className="muted"), quar_block),

@@ -16,6 +16,7 @@ from ..codec import event_arrays, from_f32, text
 from ..errors import StoreError
 from ..types import Trajectory
 from ._base import active_model_ids, counted_flag, df, model_flag, placed_full, text_by_id
+from .signals import actuation_causes
 
 __all__ = [
     "schema_version", "recordings", "quarantine", "recent_quarantine", "actuations", "export_actuations",
@@ -166,6 +167,8 @@ def export_actuations(conn) -> pd.DataFrame:
     base["reasons"] = text_by_id(ids, fl.groupby("actuation_id")["text"].agg(" | ".join))
     vd = fl[fl["verdicts"] != ""]
     base["verdicts"] = text_by_id(ids, vd.groupby("actuation_id")["verdicts"].agg("; ".join))
+    causes = actuation_causes(conn)
+    base["cause"] = text_by_id(ids, causes).where(base["flagged"], "")
     return base
 
 
@@ -206,20 +209,20 @@ def actuation_detail(conn, actuation_id: int) -> dict | None:
     return out
 
 
-BAND_LEVEL_COLUMNS = ["actuation_id", "file", "lot", "rig", "passed_qc", "levels", "slice_times_s",
+BAND_LEVEL_COLUMNS = ["actuation_id", "file", "lot", "rig", "unit", "passed_qc", "levels", "slice_times_s",
                       "band_centres_hz"]
 
 
 def band_levels(conn, event: str, *, profile: str | None = None, lots=None, actuation_ids=None,
                 passed_qc_only: bool = True) -> pd.DataFrame:
     """One row per actuation (of ``profile``, in ``lots``, or the given ids) with the event's band levels:
-    actuation_id, file, lot, rig, passed_qc, levels ((n_slices, n_bands) float32 in the event's level unit, or
+    actuation_id, file, lot, rig, unit, passed_qc, levels ((n_slices, n_bands) float32 in the event's level unit, or
     None when the event has none), slice_times_s (s from the onset), band_centres_hz (Hz)."""
     a = db.actuations
     stmt = (select(a.c.id.label("actuation_id"), db.recordings.c.original_name.label("file"),
-                   db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"), a.c.passed_qc,
-                   db.events.c.levels_f32, db.events.c.n_slices, db.events.c.n_bands, db.events.c.slice_times_f64,
-                   db.events.c.band_centres_f64)
+                   db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"), db.units.c.name.label("unit"),
+                   a.c.passed_qc, db.events.c.levels_f32, db.events.c.n_slices, db.events.c.n_bands,
+                   db.events.c.slice_times_f64, db.events.c.band_centres_f64)
             .select_from(placed_full().outerjoin(db.events, and_(db.events.c.actuation_id == a.c.id,
                                                               db.events.c.name == event)))
             .order_by(a.c.id))
@@ -235,8 +238,8 @@ def band_levels(conn, event: str, *, profile: str | None = None, lots=None, actu
     for r in conn.execute(stmt):
         arrays = event_arrays(r)
         levels, times, centres = arrays if arrays is not None else (None, None, None)
-        out.append(dict(actuation_id=r.actuation_id, file=r.file, lot=r.lot, rig=r.rig, passed_qc=bool(r.passed_qc),
-                        levels=levels, slice_times_s=times, band_centres_hz=centres))
+        out.append(dict(actuation_id=r.actuation_id, file=r.file, lot=r.lot, rig=r.rig, unit=r.unit,
+                        passed_qc=bool(r.passed_qc), levels=levels, slice_times_s=times, band_centres_hz=centres))
     return pd.DataFrame(out, columns=BAND_LEVEL_COLUMNS)
 
 

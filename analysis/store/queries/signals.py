@@ -1,0 +1,90 @@
+"""Reads of the signals table (analysis.store.signals keeps it) and the units list behind a unit signal."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from sqlalchemy import and_, select
+
+from .. import schema as db
+from ..errors import StoreError
+from ._base import df
+
+__all__ = ["signals", "SIGNAL_COLUMNS", "actuation_causes", "units_table"]
+
+#: What `harken export signals` writes, in this order.
+SIGNAL_COLUMNS = ["level", "event", "statistic", "value", "limit", "rule", "site", "rig", "lot", "unit",
+                  "actuation_id", "cause", "evidence", "model_version", "first", "last", "first_seen", "last_seen",
+                  "active", "profile", "signal_id"]
+
+_LEVEL_ORDER = {"lot": 0, "rig": 1, "cell": 2, "unit": 3, "actuation": 4}
+
+
+def signals(conn, *, profile: str | None = None, active_only: bool = True, levels=None, lot: str | None = None,
+            rig: str | None = None, limit: int | None = None) -> pd.DataFrame:
+    """Stored signals (columns SIGNAL_COLUMNS), the widest level first (lot, rig, cell, unit, actuation), then the
+    latest first."""
+    s = db.signals
+    stmt = select(s.c.level, s.c.event, s.c.statistic, s.c.value, s.c.limit_value.label("limit"), s.c.rule,
+                  s.c.site, s.c.rig, s.c.lot, s.c.unit, s.c.actuation_id, s.c.cause, s.c.evidence,
+                  s.c.model_version, s.c.first, s.c.last, s.c.first_seen, s.c.last_seen, s.c.active, s.c.profile,
+                  s.c.id.label("signal_id"))
+    if profile:
+        stmt = stmt.where(s.c.profile == profile)
+    if active_only:
+        stmt = stmt.where(s.c.active.is_(True))
+    if levels:
+        bad = [x for x in levels if x not in _LEVEL_ORDER]
+        if bad:
+            raise StoreError(f"signal levels are {', '.join(_LEVEL_ORDER)}; got {bad!r}")
+        stmt = stmt.where(s.c.level.in_(list(levels)))
+    if lot is not None:
+        stmt = stmt.where(s.c.lot == lot)
+    if rig is not None:
+        stmt = stmt.where(s.c.rig == rig)
+    out = df(conn, stmt.order_by(s.c.id))
+    if not len(out):
+        return pd.DataFrame(columns=SIGNAL_COLUMNS)
+    out["active"] = out["active"].astype(bool)
+    out["_o"] = out["level"].map(_LEVEL_ORDER)
+    out = out.sort_values(["_o", "last"], ascending=[True, False], na_position="last").drop(columns="_o")
+    out = out.reset_index(drop=True)
+    return out.head(limit) if limit is not None else out
+
+
+def actuation_causes(conn, actuation_ids=None) -> pd.Series:
+    """The suggested cause of each flagged actuation (active actuation-level signals), by actuation id; several
+    events with different causes are joined with "; "."""
+    s = db.signals
+    stmt = select(s.c.actuation_id, s.c.cause).where(and_(s.c.level == "actuation", s.c.active.is_(True)))
+    if actuation_ids is not None:
+        stmt = stmt.where(s.c.actuation_id.in_([int(i) for i in actuation_ids]))
+    got = df(conn, stmt.order_by(s.c.id))
+    if not len(got):
+        return pd.Series(dtype=object)
+    return got.groupby("actuation_id")["cause"].agg(lambda c: "; ".join(dict.fromkeys(c)))
+
+
+def units_table(conn, profile: str, event: str, *, lot: str | None = None, rig: str | None = None,
+                statistic: str = "event_spe_ratio") -> pd.DataFrame:
+    """Each unit of a lot or rig: its mean of ``statistic`` (geometric mean of the ratio) over its actuations that
+    passed QC, n, the limit for that n (from the active model's unit limits), whether it signals, and its lot,
+    rig and site. Empty when the event has no active model or its model holds no unit limits."""
+    from ..signals import model_levels, unit_summaries
+
+    limits, refs, ids = model_levels(conn, profile)
+    cols = ["unit", "lot", "rig", "site", "n", "value", "limit", "signal", "reference"]
+    if event not in ids or statistic not in (limits.get(event) or {}):
+        return pd.DataFrame(columns=cols)
+    u = unit_summaries(conn, profile, {event: ids[event]})
+    u = u[(u["statistic"] == statistic) & (u["n"] > 0)]
+    if lot is not None:
+        u = u[u["lot"] == lot]
+    if rig is not None:
+        u = u[u["rig"] == rig]
+    lim = limits[event][statistic]
+    out = u.assign(value=np.exp(u["mean"].astype(float)),
+                   limit=np.exp(np.asarray(lim.ucl(u["n"].to_numpy(dtype=float)), dtype=float)) if len(u) else [])
+    out["signal"] = out["value"] > out["limit"]
+    out["reference"] = out["lot"].isin(set(refs.get(event, ())))
+    return out[cols].sort_values(["lot", "rig", "unit"]).reset_index(drop=True)

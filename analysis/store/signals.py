@@ -1,0 +1,159 @@
+"""Keep the signals table up to date: read what the decisions need, decide (analysis.triage), write the rows.
+
+``refresh_signals(conn, profile)`` runs inside the caller's write transaction: the worker's commit of a batch,
+each chunk of a re-scoring. It reads per-unit sums of the natural log of each per-actuation statistic under the
+active models (actuations that passed their quality checks only), the unit limits stored with each model, and
+the flagged actuations; asks analysis.triage.decide for every signal; and writes them: a signal raised again
+keeps its row (first_seen stays, last_seen and the values move), a new one is inserted, an active one no longer
+raised is set inactive. On PostgreSQL a transaction-scoped advisory lock makes concurrent refreshes of one
+profile take turns, so the last one sees every committed batch.
+"""
+
+from __future__ import annotations
+
+import json
+import zlib
+
+import numpy as np
+import pandas as pd
+from sqlalchemy import and_, bindparam, case, func, or_, select, text
+
+from analysis.monitor.levels import GROUP_STATISTICS, MeanLimits
+from analysis.triage import decide, evidence_words
+
+from . import schema as db
+from .codec import num
+from .codec import text as stored_text
+from .queries._base import active_model_ids, df, placed_full
+
+__all__ = ["refresh_signals", "unit_summaries", "model_levels"]
+
+
+def model_levels(conn, profile: str) -> tuple[dict, dict, dict]:
+    """For the active models of ``profile``: ({event: {statistic: MeanLimits}}, {event: reference lots},
+    {event: (model_id, version)})."""
+    m = db.reference_models
+    rows = conn.execute(select(m.c.id, m.c.event, m.c.version, m.c.reference_lots, m.c.model_json)
+                        .where(and_(m.c.profile == profile, m.c.status == "active"))).all()
+    limits, refs, ids = {}, {}, {}
+    for r in rows:
+        ids[r.event] = (r.id, r.version)
+        refs[r.event] = list(json.loads(r.reference_lots or "[]"))
+        meta = (json.loads(r.model_json).get("metadata") or {})
+        stored = meta.get("unit_limits") or {}
+        limits[r.event] = {k: MeanLimits.from_dict(v) for k, v in stored.items() if k in GROUP_STATISTICS}
+    return limits, refs, ids
+
+
+def unit_summaries(conn, profile: str, model_ids: dict) -> pd.DataFrame:
+    """Per (event, statistic, lot, rig, unit): site, n (actuations that passed QC with a positive value), mean (of
+    the natural log), first and last recording time (UTC)."""
+    a, t = db.actuations, db.trajectories
+    frames = []
+    for event, (model_id, _version) in model_ids.items():
+        cols = []
+        for stat in GROUP_STATISTICS:
+            c = t.c[stat]
+            v = case((and_(a.c.passed_qc.is_(True), c > 0), func.ln(c)), else_=None)
+            cols += [func.count(v).label(f"{stat}__n"), func.sum(v).label(f"{stat}__s1")]
+        stmt = (select(db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"), db.sites.c.name.label("site"),
+                       db.units.c.name.label("unit"), func.min(a.c.recorded_at).label("first"),
+                       func.max(a.c.recorded_at).label("last"), *cols)
+                .select_from(placed_full().join(t, and_(t.c.actuation_id == a.c.id, t.c.model_id == model_id)))
+                .where(a.c.profile == profile)
+                .group_by(db.lots.c.name, db.rigs.c.name, db.sites.c.name, db.units.c.name))
+        g = df(conn, stmt)
+        for stat in GROUP_STATISTICS:
+            n = g[f"{stat}__n"].fillna(0).astype(int)
+            s1 = g[f"{stat}__s1"].astype(float)
+            frames.append(pd.DataFrame({
+                "event": event, "statistic": stat, "lot": g["lot"], "rig": g["rig"], "site": g["site"],
+                "unit": g["unit"], "n": n, "mean": np.where(n > 0, s1 / n.where(n > 0), np.nan),
+                "first": pd.to_datetime(g["first"]), "last": pd.to_datetime(g["last"])}))
+    cols = ["event", "statistic", "lot", "rig", "site", "unit", "n", "mean", "first", "last"]
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=cols)
+
+
+def _flagged(conn, profile: str) -> pd.DataFrame:
+    """One row per flagged actuation and event (event None for quality-check flags): actuation_id, event,
+    statistics (list), value and limit of the strongest flag, site, rig, lot, unit, recorded_at."""
+    a, f = db.actuations, db.flags
+    active = active_model_ids(conn, profile)
+    counted = or_(f.c.model_id.is_(None), f.c.model_id.in_(active or [-1]))
+    stmt = (select(f.c.actuation_id, f.c.event, f.c.model_id, f.c.statistic, f.c.value, f.c.limit_value,
+                   db.sites.c.name.label("site"), db.rigs.c.name.label("rig"), db.lots.c.name.label("lot"),
+                   db.units.c.name.label("unit"), a.c.recorded_at)
+            .select_from(placed_full().join(f, f.c.actuation_id == a.c.id))
+            .where(and_(a.c.profile == profile, counted)).order_by(f.c.actuation_id, f.c.id))
+    fl = df(conn, stmt)
+    cols = ["actuation_id", "event", "statistics", "value", "limit", "site", "rig", "lot", "unit", "recorded_at"]
+    if not len(fl):
+        return pd.DataFrame(columns=cols)
+    fl["qc"] = fl["model_id"].isna()
+    fl["event"] = fl["event"].where(~fl["qc"], None)
+    ratio = fl["value"].astype(float) / fl["limit_value"].astype(float).where(fl["limit_value"] > 0)
+    fl["ratio"] = ratio.fillna(np.inf)
+    rows = []
+    for (aid, event), g in fl.groupby(["actuation_id", fl["event"].fillna("")], sort=False):
+        g = g.sort_values(["qc", "ratio"], ascending=[False, False])
+        top = g.iloc[0]
+        rows.append(dict(actuation_id=int(aid), event=event or None, statistics=list(dict.fromkeys(g["statistic"])),
+                         value=top["value"], limit=top["limit_value"], site=top["site"], rig=top["rig"],
+                         lot=top["lot"], unit=top["unit"], recorded_at=top["recorded_at"]))
+    out = pd.DataFrame(rows, columns=cols)
+    # An actuation that failed a quality check gets one signal (the recording), not one per event as well.
+    qc_ids = set(out.loc[out["event"].isna(), "actuation_id"])
+    return out[out["event"].isna() | ~out["actuation_id"].isin(qc_ids)].reset_index(drop=True)
+
+
+def _lock(conn, profile: str) -> None:
+    if conn.dialect.name == "postgresql":
+        key = zlib.crc32(f"harken.signals.{profile}".encode()) - 2**31
+        conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": key})
+
+
+def _time(v):
+    if v is None or (isinstance(v, float) and np.isnan(v)):
+        return None
+    t = pd.Timestamp(v)
+    return None if pd.isna(t) else t.to_pydatetime().replace(tzinfo=None)
+
+
+def refresh_signals(conn, profile: str, *, now=None) -> dict:
+    """Recompute every signal of ``profile`` and write them (module docstring); returns counts
+    {"active", "new", "ended"}."""
+    _lock(conn, profile)
+    now = now or db.utc_now()
+    limits, refs, ids = model_levels(conn, profile)
+    units = unit_summaries(conn, profile, ids)
+    flagged = _flagged(conn, profile)
+    decisions = decide(units, limits, flagged, reference_lots=refs)
+    s = db.signals
+    have = {r.key: (r.id, r.active) for r in conn.execute(select(s.c.key, s.c.id, s.c.active)
+                                                           .where(s.c.profile == profile))}
+    inserts, updates, seen = [], [], set()
+    for d in decisions:
+        key = d.key
+        if key in seen:
+            continue
+        seen.add(key)
+        version = ids.get(d.event, (None, None))[1] if d.event else None
+        row = dict(level=d.level, event=d.event, statistic=d.statistic, value=num(d.value),
+                   limit_value=num(d.limit), rule=stored_text(d.rule), site=stored_text(d.site),
+                   rig=stored_text(d.rig), lot=stored_text(d.lot), unit=stored_text(d.unit),
+                   actuation_id=d.actuation_id, cause=d.cause, evidence=stored_text(evidence_words(d)),
+                   evidence_json=stored_text(json.dumps(d.evidence, ensure_ascii=False, default=str)),
+                   model_version=version, first=_time(d.first), last=_time(d.last), last_seen=now, active=True)
+        if key in have:
+            updates.append(dict(row, b_id=have[key][0]))
+        else:
+            inserts.append(dict(row, profile=profile, key=key, first_seen=now))
+    if inserts:
+        conn.execute(s.insert(), inserts)
+    if updates:
+        conn.execute(s.update().where(s.c.id == bindparam("b_id")),
+                     [{k: v for k, v in u.items()} for u in updates])
+    ended = [i for k, (i, active) in have.items() if active and k not in seen]
+    for start in range(0, len(ended), 500):
+        conn.execute(s.update().where(s.c.id.in_(ended[start:start + 500])).values(active=False))
+    return {"active": len(seen), "new": len(inserts), "ended": len(ended)}
