@@ -13,7 +13,7 @@ among many actuations does not make a cell signal.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
@@ -237,18 +237,9 @@ def _cell_causes(chart, units_here: pd.DataFrame, unit_signal: dict, *, referenc
     z = pts.assign(z=(pts["y"].astype(float) - centre) / sigma)
     overall, lot_eff, rig_eff, resid = _polish(z[np.isfinite(z["z"])])
     new = z[~z["lot"].isin(set(reference_lots))]
-    lot_cause: dict[str, dict] = {}
-    for lot, g in new.groupby("lot", sort=False):
-        m = int(g["rig"].nunique())
-        departing = sorted(g.loc[g["z"] > DEPART_SIGMAS, "rig"])
-        effect = float(lot_eff.get(lot, 0.0)) + overall
-        if m >= 2 and len(departing) >= max(2, math.ceil(m / 2)) and effect > DEPART_SIGMAS:
-            lot_cause[lot] = {"rigs_departing": departing, "rigs": m, "lot_effect_sd": round(effect, 2)}
     # A cell whose departure is carried by units that signal on their own is about those units, not its rig.
     by_units: dict = {}
     for r in new.itertuples(index=False):
-        if r.lot in lot_cause:
-            continue
         here = units_here[(units_here["lot"] == r.lot) & (units_here["rig"] == r.rig)]
         hot = [u for u in here["unit"] if unit_signal.get((r.lot, u))]
         # Concentrated: a minority of the cell's units (one of two, up to a third of many) carries it.
@@ -259,28 +250,48 @@ def _cell_causes(chart, units_here: pd.DataFrame, unit_signal: dict, *, referenc
         rest_y = float((rest["n"] * rest["mean"]).sum() / rest_n) if rest_n else math.nan
         if not math.isfinite(rest_y) or (rest_y - centre) / sigma <= DEPART_SIGMAS:
             by_units[(r.lot, r.rig)] = {"units_signalling": hot, "units": int(len(here))}
+    lot_cause: dict[str, dict] = {}
+    for lot, g in new.groupby("lot", sort=False):
+        m = int(g["rig"].nunique())
+        # a cell carried by one of its units is that unit's, not evidence for its lot
+        departing = sorted(rg for rg, zz in zip(g["rig"], g["z"]) if zz > DEPART_SIGMAS and (lot, rg) not in by_units)
+        effect = float(lot_eff.get(lot, 0.0)) + overall
+        if m >= 2 and len(departing) >= max(2, math.ceil(m / 2)) and effect > DEPART_SIGMAS:
+            lot_cause[lot] = {"rigs_departing": departing, "rigs": m, "lot_effect_sd": round(effect, 2)}
+    for key in [k for k in by_units if k[0] in lot_cause]:
+        del by_units[key]  # within a lot that departs as a whole, its units' signals are the lot's
     rig_cause: dict[str, dict] = {}
     for rig, g in new.groupby("rig", sort=False):
         g = g.sort_values("first")
-        free = g[[lot not in lot_cause and (lot, rig) not in by_units for lot in g["lot"]]]
+        # single-unit cells stay evidence for their rig: one unit cannot tell the unit from the rig
+        free = g[[lot not in lot_cause and ((lot, rig) not in by_units or by_units[(lot, rig)]["units"] < 2)
+                  for lot in g["lot"]]]
         beyond_lot = [lot for lot in free["lot"] if _finite(resid.at[lot, rig]) is not None
                       and resid.at[lot, rig] > RESIDUAL_SIGMAS]
         ruled = [(lot, r) for lot, r in zip(free["lot"], free["rules"])
                  if any(x in SEQUENCE_RULES for x in str(r).split(",") if x)]
         effect = float(rig_eff.get(rig, 0.0))
-        if len(beyond_lot) >= 2 or effect > DEPART_SIGMAS or ruled:
+        sustained = float(free["z"].median()) if len(free) else 0.0
+        # Beyond what their lots explain in two lots; or a change over time (sequence rules in two of its lots)
+        # that has moved the rig's typical cell by a chart SD; or a rig offset on most of its lots.
+        if len(beyond_lot) >= 2 or (len(ruled) >= 2 and sustained > 1.0) or effect > DEPART_SIGMAS:
             rig_cause[rig] = {"lots_departing": beyond_lot, "run_rules": [f"{lot}: {r}" for lot, r in ruled],
                               "rig_effect_sd": round(effect, 2), "lots": int(g["lot"].nunique())}
+    n_units = units_here.groupby(["lot", "rig"])["unit"].nunique()
     out: dict = {}
     for r in new.itertuples(index=False):
         ev = {"z": round(float(r.z), 2), "lot_effect_sd": round(float(lot_eff.get(r.lot, 0.0)) + overall, 2),
               "rig_effect_sd": round(float(rig_eff.get(r.rig, 0.0)), 2)}
         if r.lot in lot_cause:
             out[(r.lot, r.rig)] = ("lot", {**ev, **lot_cause[r.lot]})
-        elif (r.lot, r.rig) in by_units:
+        elif (r.lot, r.rig) in by_units and by_units[(r.lot, r.rig)]["units"] >= 2:
             out[(r.lot, r.rig)] = ("unit", {**ev, **by_units[(r.lot, r.rig)]})
         elif r.rig in rig_cause:
             out[(r.lot, r.rig)] = ("rig", {**ev, **rig_cause[r.rig]})
+        elif int(n_units.get((r.lot, r.rig), 0)) <= 1:
+            # one unit in the cell and its rig is no cause: the unit is the likelier (a rig fault lasts)
+            out[(r.lot, r.rig)] = ("unit", {**ev, "units_signalling": by_units.get((r.lot, r.rig), {}).get(
+                "units_signalling", []), "units": int(n_units.get((r.lot, r.rig), 0))})
         else:
             out[(r.lot, r.rig)] = ("rig", {**ev, "units_signalling": [], "only_this_lot": True})
     return {"cells": out, "lots": lot_cause, "rigs": rig_cause}
@@ -322,7 +333,6 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
         refs = reference_lots.get(event, ())
         cells = cell_table(u[u["event"] == event])
         best_cell: dict = {}
-        best_lot: dict = {}
         found_lots: dict = {}
         found_rigs: dict = {}
         for stat in CHART_STATISTICS:
@@ -345,37 +355,19 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
                 if (r.lot, r.rig) not in best_cell or z > best_cell[(r.lot, r.rig)][0]:
                     cause, ev = causes["cells"].get((r.lot, r.rig), ("unit", {}))
                     best_cell[(r.lot, r.rig)] = (z, stat, r, chart, cause, ev)
-            pooled = pts.groupby("lot", sort=False).apply(
-                lambda g: pd.Series({"n": g["n"].sum(), "mean": (g["n"] * g["mean"]).sum() / g["n"].sum(),
-                                     "first": g["first"].min(), "last": g["last"].max()}),
-                include_groups=False).reset_index()
-            pooled["rig"] = "all rigs"
-            lchart = _chart(pooled, refs, rules)
-            lp = lchart.points
-            for r in lp[lp["signal"] & ~lp["reference"]].itertuples(index=False):
-                z = (float(r.y) - lchart.centre) / lchart.sigma if lchart.sigma > 0 else math.inf
-                if r.lot not in best_lot or z > best_lot[r.lot][0]:
-                    best_lot[r.lot] = (z, stat, r, lchart)
         for (lot, rig), (_z, stat, r, chart, cause, ev) in best_cell.items():
             cell_cause[(event, lot, rig)] = cause
             out.append(Decision(
                 "cell", event, stat, _finite(math.exp(r.y)), _finite(chart.to_display(chart.ucl)),
                 "beyond" if r.beyond else r.rules, r.site, rig, lot, None, None, cause, ev, r.first, r.last))
-        for lot in dict.fromkeys(list(found_lots) + list(best_lot)):
-            stat, ev = found_lots.get(lot, (None, {}))
-            z, stat2, r, lchart = best_lot.get(lot, (None, stat, None, None))
-            stat = stat or stat2
-            of_cells = {rg: c for (e, lt, rg), c in cell_cause.items() if e == event and lt == lot}
-            cause = "lot" if lot in found_lots else _majority(list(of_cells.values())) or "lot"
-            ev = {**ev, "cells": of_cells}
-            rule = ("across rigs" if lot in found_lots else "") + (
-                ("; " if lot in found_lots else "") + ("beyond" if r.beyond else r.rules) if r is not None else "")
+        for lot, (stat, ev) in found_lots.items():
             cells_of = cells[(cells["lot"] == lot) & (cells["statistic"] == stat)]
+            n = float(cells_of["n"].sum())
+            y = float((cells_of["n"] * cells_of["mean"]).sum() / n) if n else math.nan
             out.append(Decision(
-                "lot", event, stat, _finite(math.exp(r.y)) if r is not None else None,
-                _finite(lchart.to_display(lchart.ucl)) if lchart is not None else None, rule, None, None, lot,
-                None, None, cause, {**ev, "pooled_z": None if z is None else round(float(z), 2)},
-                cells_of["first"].min() if len(cells_of) else None, cells_of["last"].max() if len(cells_of) else None))
+                "lot", event, stat, _finite(math.exp(y)) if math.isfinite(y) else None, None, "across rigs", None,
+                None, lot, None, None, "lot", ev, cells_of["first"].min() if len(cells_of) else None,
+                cells_of["last"].max() if len(cells_of) else None))
         for rig, (stat, ev) in found_rigs.items():
             cells_of = cells[(cells["rig"] == rig) & (cells["statistic"] == stat)]
             site = cells_of["site"].iloc[0] if len(cells_of) else None
@@ -385,14 +377,24 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
             out.append(Decision(
                 "rig", event, stat, None, None, rule, site, rig, None, None, None, "rig", ev,
                 hit["first"].min() if len(hit) else None, hit["last"].max() if len(hit) else None))
-    rig_of_cell = {}
+    # Across events: a lot or rig found to be a cause in one event explains its cells in the others (a lot's
+    # change may show most in one event); a cell carried by one of several units stays that unit's.
+    lots_found = {d.lot: d.event for d in out if d.level == "lot" and d.cause == "lot"}
+    rigs_found = {d.rig: (d.event, d.first) for d in out if d.level == "rig"}
+    for i, d in enumerate(out):
+        if d.level != "cell" or d.cause == "lot":
+            continue
+        concentrated = d.cause == "unit" and (d.evidence.get("units") or 0) >= 2
+        if d.lot in lots_found:
+            out[i] = replace(d, cause="lot", evidence={**d.evidence, "lot_departs_in": lots_found[d.lot]})
+        elif d.rig in rigs_found and not concentrated and d.cause != "rig":
+            out[i] = replace(d, cause="rig", evidence={**d.evidence, "rig_departs_in": rigs_found[d.rig][0]})
+        cell_cause[(d.event, d.lot, d.rig)] = out[i].cause
     for (event, lot, unit), (z, row, lim_y, stat) in per_unit.items():
         cause = cell_cause.get((event, lot, row.rig))
         if cause not in ("lot", "rig"):
-            lot_dec = any(d.level == "lot" and d.event == event and d.lot == lot and d.cause == "lot" for d in out)
-            cause = "lot" if lot_dec else "unit"
+            cause = "lot" if lot in lots_found else "unit"
         unit_cause[(event, lot, unit)] = cause
-        rig_of_cell[(event, lot, unit)] = row.rig
         out.append(Decision(
             "unit", event, stat, _finite(math.exp(row.mean)), _finite(math.exp(lim_y)), "beyond", row.site, row.rig,
             lot, unit, None, cause, {"z": round(z, 2), "actuations": int(row.n)}, row.first, row.last))
@@ -404,6 +406,10 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
         else:
             cause = unit_cause.get((r.event, r.lot, r.unit)) or cell_cause.get((r.event, r.lot, r.rig))
             via = "unit" if (r.event, r.lot, r.unit) in unit_cause else "cell" if cause else None
+            if cause is None and r.lot in lots_found:
+                cause, via = "lot", "lot"
+            elif cause is None and r.rig in rigs_found and _after(r.recorded_at, rigs_found[r.rig][1]):
+                cause, via = "rig", "rig"
             if cause is None:
                 cause = "unit"
             ev = {"statistics": stats_, "via": via}
@@ -412,6 +418,14 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
             _finite(r.limit), "quality check" if qc else "beyond", r.site, r.rig, r.lot, r.unit,
             int(r.actuation_id), cause, ev, r.recorded_at, r.recorded_at))
     return out
+
+
+def _after(t, start) -> bool:
+    """True when time ``t`` is at or after ``start`` (or either is unknown: no reason to rule it out)."""
+    try:
+        return pd.isna(t) or pd.isna(start) or pd.Timestamp(t) >= pd.Timestamp(start)
+    except (TypeError, ValueError):
+        return True
 
 
 def _majority(causes) -> str | None:
@@ -428,8 +442,15 @@ def evidence_words(d: Decision) -> str:
             "t2_ratio": "Hotelling T²", "spe_ratio": "SPE"}.get(d.statistic, d.statistic)
     if d.cause == "recording":
         return f"the recording failed its quality check(s): {', '.join(e.get('checks', []))}"
+    if d.level == "cell" and e.get("lot_departs_in"):
+        return (f"lot {d.lot} on rig {d.rig} departs ({e.get('z')} chart SD, {what}); lot {d.lot} departs as a "
+                f"whole in {e['lot_departs_in']}")
+    if d.level == "cell" and e.get("rig_departs_in"):
+        return (f"lot {d.lot} on rig {d.rig} departs ({e.get('z')} chart SD, {what}); rig {d.rig} departs over "
+                f"its lots in {e['rig_departs_in']}")
     if d.level == "actuation":
         via = {"unit": f"its unit {d.unit} signals too", "cell": f"its cell (lot {d.lot}, rig {d.rig}) signals",
+               "lot": f"lot {d.lot} departs as a whole", "rig": f"rig {d.rig} departs since its change began",
                None: f"neither unit {d.unit} nor lot {d.lot} on rig {d.rig} signals as a whole"}[e.get("via")]
         return f"flagged on {', '.join(map(str, e.get('statistics', [])))}; {via}"
     if d.level == "unit":
@@ -453,6 +474,9 @@ def evidence_words(d: Decision) -> str:
         if not parts:
             parts.append(f"rig effect {e.get('rig_effect_sd')} chart SD over its {e.get('lots')} lots")
         return f"rig {d.rig} " + " and ".join(parts) + f" ({what})"
+    if d.cause == "unit" and e.get("units") == 1:
+        return (f"lot {d.lot} on rig {d.rig} departs ({e.get('z')} chart SD, {what}); its one unit was tested there "
+                f"and rig {d.rig} does not depart in its other lots: look at the unit")
     if d.cause == "unit":
         return (f"lot {d.lot} on rig {d.rig}: the departure is carried by unit(s) "
                 f"{', '.join(e.get('units_signalling', []))} of {e.get('units')} ({what})")

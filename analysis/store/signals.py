@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 from sqlalchemy import and_, bindparam, case, func, or_, select, text
 
+from analysis.errors import ParameterError
 from analysis.monitor.levels import GROUP_STATISTICS, MeanLimits
 from analysis.triage import decide, evidence_words
 
@@ -39,9 +40,14 @@ def model_levels(conn, profile: str) -> tuple[dict, dict, dict]:
     for r in rows:
         ids[r.event] = (r.id, r.version)
         refs[r.event] = list(json.loads(r.reference_lots or "[]"))
-        meta = (json.loads(r.model_json).get("metadata") or {})
-        stored = meta.get("unit_limits") or {}
-        limits[r.event] = {k: MeanLimits.from_dict(v) for k, v in stored.items() if k in GROUP_STATISTICS}
+        try:
+            meta = json.loads(r.model_json).get("metadata") or {}
+            stored = meta.get("unit_limits") or {}
+            limits[r.event] = {k: MeanLimits.from_dict(v) for k, v in stored.items() if k in GROUP_STATISTICS}
+        except (ValueError, AttributeError, ParameterError):
+            # A model built before unit limits were stored (or a document that is not ours): no unit signals
+            # for its event until it is rebuilt; the cell, lot and rig levels need no stored limits.
+            limits[r.event] = {}
     return limits, refs, ids
 
 

@@ -71,3 +71,102 @@ def test_cell_causes_explain_lots_first_then_rigs_then_single_cells():
     assert got == [("lot", "L2", None, (("L2", "R1"), ("L2", "R2"), ("L2", "R3"))),
                    ("rig", None, "R1", (("L1", "R1"), ("L3", "R1"))),
                    ("unit", "L4", "R3", (("L4", "R3"),))]
+
+
+# ---------------------------------------------------------------------------------------------- decide()
+import numpy as np  # noqa: E402
+
+from analysis.monitor.levels import MeanLimits  # noqa: E402
+from analysis.triage import decide, evidence_words  # noqa: E402
+
+LOTS = [f"L{i:02d}" for i in range(1, 13)]
+RIGS = ["R1", "R2", "R3", "R4"]
+REF = LOTS[:4]
+
+
+def units_table(seed, *, lot_shift=None, rig_shift=None, unit_shift=None, size=1.0):
+    """Per-unit means of the log event residual: 2 units per (lot, rig) cell, 16 actuations each, unit-to-unit SD
+    0.1 and actuation SD 0.4 (so a unit mean has SD sqrt(0.01 + 0.16/16) = 0.14); one fault added."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    t = pd.Timestamp("2026-01-05")
+    for lot in LOTS:
+        for rig in RIGS:
+            for k in (1, 2):
+                unit = f"{lot}-{rig}-{k}"
+                m = rng.normal(0, 0.1) + rng.normal(0, 0.4 / 4)
+                if lot == lot_shift or (rig_shift and rig == rig_shift[0] and lot in rig_shift[1]) or unit == unit_shift:
+                    m += size
+                rows.append(dict(event="ev", statistic="event_spe_ratio", lot=lot, rig=rig, site="S", unit=unit,
+                                 n=16, mean=m, first=t, last=t + pd.Timedelta(hours=1)))
+            t += pd.Timedelta(hours=3)
+    return pd.DataFrame(rows)
+
+
+LIMITS = {"ev": {"event_spe_ratio": MeanLimits(centre=0.0, var_lot=0.0, var_unit=0.01, var_within=0.16,
+                                               alpha=0.001, n_units=32, n_lots=4)}}
+NO_FLAGS = pd.DataFrame(columns=["actuation_id", "event", "statistics", "value", "limit", "site", "rig", "lot",
+                                 "unit", "recorded_at"])
+
+
+def by(decisions, level):
+    return [d for d in decisions if d.level == level]
+
+
+def test_a_lot_departing_on_every_rig_is_the_lot():
+    d = decide(units_table(1, lot_shift="L08"), LIMITS, NO_FLAGS, reference_lots={"ev": REF})
+    lots = by(d, "lot")
+    assert [x.lot for x in lots] == ["L08"] and lots[0].cause == "lot"
+    assert {x.rig for x in by(d, "cell") if x.lot == "L08"} == set(RIGS)
+    assert all(x.cause == "lot" for x in by(d, "cell") + by(d, "unit") if x.lot == "L08")
+    assert "departs on 4 of 4 rigs" in evidence_words(lots[0])
+
+
+def test_a_rig_departing_in_several_lots_is_the_rig():
+    d = decide(units_table(2, rig_shift=("R3", LOTS[8:])), LIMITS, NO_FLAGS, reference_lots={"ev": REF})
+    rigs = by(d, "rig")
+    assert [x.rig for x in rigs] == ["R3"] and rigs[0].cause == "rig"
+    cells = by(d, "cell")
+    assert {x.lot for x in cells if x.rig == "R3"} == set(LOTS[8:])
+    assert all(x.cause == "rig" for x in cells)
+    assert not [x for x in by(d, "lot") if x.cause == "lot"]  # one rig's fault never makes a lot
+    assert "R3" in evidence_words(rigs[0])
+
+
+def test_one_unit_is_the_unit_and_makes_no_lot_or_rig():
+    d = decide(units_table(3, unit_shift="L09-R2-1", size=1.2), LIMITS, NO_FLAGS, reference_lots={"ev": REF})
+    units = by(d, "unit")
+    assert [x.unit for x in units] == ["L09-R2-1"] and units[0].cause == "unit"
+    assert [x.cause for x in by(d, "cell") if (x.lot, x.rig) == ("L09", "R2")] == ["unit"]
+    assert not by(d, "rig") and not [x for x in by(d, "lot") if x.cause == "lot"]
+
+
+def test_two_unrelated_faults_on_two_rigs_do_not_make_a_lot():
+    u = units_table(4)
+    u.loc[u["unit"].isin(["L10-R1-1", "L10-R4-2"]), "mean"] += 1.5
+    d = decide(u, LIMITS, NO_FLAGS, reference_lots={"ev": REF})
+    assert not [x for x in by(d, "lot") if x.cause == "lot"]
+    assert {x.unit for x in by(d, "unit")} == {"L10-R1-1", "L10-R4-2"}
+    assert all(x.cause == "unit" for x in by(d, "unit"))
+
+
+def test_flagged_actuations_take_the_recording_or_their_unit_s_cause():
+    u = units_table(5, lot_shift="L07")
+    flagged = pd.DataFrame([
+        dict(actuation_id=1, event=None, statistics=["qc:clipping"], value=0.1, limit=1e-4, site="S", rig="R1",
+             lot="L07", unit="L07-R1-1", recorded_at=pd.Timestamp("2026-02-01")),
+        dict(actuation_id=2, event="ev", statistics=["event_residual"], value=5.0, limit=2.0, site="S", rig="R2",
+             lot="L07", unit="L07-R2-1", recorded_at=pd.Timestamp("2026-02-01")),
+        dict(actuation_id=3, event="ev", statistics=["t2"], value=5.0, limit=2.0, site="S", rig="R2", lot="L11",
+             unit="L11-R2-1", recorded_at=pd.Timestamp("2026-02-01")),
+    ])
+    d = {x.actuation_id: x for x in by(decide(u, LIMITS, flagged, reference_lots={"ev": REF}), "actuation")}
+    assert d[1].cause == "recording" and "clipping" in evidence_words(d[1])
+    assert d[2].cause == "lot"  # its cell is part of a lot that departs on every rig
+    assert d[3].cause == "unit"  # a single flag in a quiet cell
+
+
+def test_normal_data_raise_few_signals():
+    raised = [len([x for x in decide(units_table(s), LIMITS, NO_FLAGS, reference_lots={"ev": REF})
+                   if x.level in ("lot", "rig", "unit")]) for s in range(10, 20)]
+    assert sum(raised) <= 10, raised  # 10 tables of 64 new units, 8 new lots: about one signal per table at most
