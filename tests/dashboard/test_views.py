@@ -119,6 +119,52 @@ def test_today_data_states_and_causes(ctx):
     assert _find(tree, "today-flags") is not None
 
 
+def test_today_lists_stored_signals_with_their_cause_and_next_step(ctx):
+    from analysis.triage import NEXT_STEP
+
+    data = today.today_data(ctx.store, per_rig=5)
+    sig = data["signals"]
+    assert len(sig) and set(sig["level"]) <= {"lot", "rig", "cell", "unit"}
+    assert "actuation" not in set(sig["level"])
+    # the coarse lot of the small scenario is listed as a lot signal even though few of its actuations flag
+    lot = sig[(sig["level"] == "lot") & (sig["lot"] == "L2604")]
+    assert len(lot) and (lot["cause"] == "lot").all()
+    assert data["counts"]["signals"] == len(sig)
+    block = today.render_signals(sig)
+    items = _find(block, "today-signals").children
+    assert len(items) == min(len(sig), today.MAX_SIGNALS)
+    text = str(block.to_plotly_json())
+    assert "Suggested cause: lot" in text and NEXT_STEP["lot"] in text
+    # flags of the latest recordings take their cause from the stored actuation signals
+    with ctx.store.read() as conn:
+        stored = queries.signals(conn, levels=("actuation",))
+    fl = data["flags"]
+    for aid, cause in fl.groupby("actuation_id")["cause"].first().items():
+        assert cause in set(stored.loc[stored["actuation_id"] == aid, "cause"]), aid
+
+
+def test_lots_rings_the_stored_signals_and_lists_units(ctx):
+    with ctx.store.read() as conn:
+        cells = queries.signals(conn, levels=("cell",))
+    cells = cells[(cells["event"] == "dose_release") & (cells["statistic"] == "event_spe_ratio")]
+    chart, cloud, st = lots.lots_chart_data(ctx.store, "event_spe_ratio", "dose_release", Filters())
+    stored = lots.stored_marks(ctx.store, "event_spe_ratio", "dose_release", None, by_rig=True, rules="we")
+    assert set(zip(stored["lot"], stored["rig"])) == set(zip(cells["lot"], cells["rig"]))
+    fig = lots.figures.lot_chart_figure(chart, st, cloud=cloud, stored=stored)
+    ring = [t for t in fig.data if t.name == "stored signal"]
+    assert len(ring) == 1 and len(ring[0].x) == len(stored)
+    assert all("suggested cause:" in t for t in ring[0].text)
+    assert not [t for t in fig.data if t.name == "signal (limit or run rule)"]  # no second computation drawn
+    assert "stored signals" in lots.chart_summary(chart, st, stored).lower()
+    # a statistic the store keeps no signals for: the chart's own checks, said so
+    assert lots.stored_marks(ctx.store, "t2_ratio", "dose_release", None, by_rig=True, rules="we") is None
+    pooled = lots.stored_marks(ctx.store, "event_spe_ratio", "dose_release", None, by_rig=False, rules="we")
+    assert set(pooled["rig"]) <= {"all rigs"} and "L2604" in set(pooled["lot"])
+    detail = lots.lot_detail(ctx.store, "L2604|NF-R1", profile="demo-dpi", event="dose_release")
+    units = _find(detail, "lots-units")
+    assert units is not None and len(units.children[1].children) >= 1
+
+
 def test_today_shows_quarantined_recordings(store_copy, tmp_path):
     from analysis.store import Store
 

@@ -98,6 +98,22 @@ def test_audio_source_answers_range_with_playable_wav(page, server):
     assert page.errors == []
 
 
+def test_today_lists_signals_and_lots_lists_a_lot_s_units(page, server):
+    page.goto(server + "/")
+    _settle(page)
+    page.wait_for_selector("#today-signals li")
+    first = page.locator("#today-signals li").first.inner_text()
+    assert "Suggested cause:" in first and "Next:" in first
+    assert page.locator("#today-signals li", has_text="L2604").count() >= 1  # the small scenario's coarse lot
+    page.goto(server + "/lots?event=dose_release&lot=L2604%7CNF-R1")
+    _settle(page)
+    page.wait_for_selector("#lots-units tbody tr")
+    assert page.locator("#lots-units tbody tr").count() >= 1
+    page.wait_for_selector("#lots-chart .main-svg")
+    assert "stored signals" in page.locator("#lots-summary").inner_text().lower()
+    assert page.errors == []
+
+
 def test_deep_link_reproduces_the_selections(page, browser, server):
     page.goto(server + "/lots")
     _settle(page)
