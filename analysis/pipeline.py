@@ -17,6 +17,7 @@ import numpy as np
 from . import io
 from .errors import AudioError, ProfileError
 from .profiles import BandSpec, DeviceProfile, EventSpec, find_profile, load_profile
+from .signal import background as _background
 from .signal import bands as _bands
 from .signal import events as _events
 from .signal import features as _features
@@ -50,6 +51,7 @@ class RecordingResult:
     sidecar: io.Sidecar | None = field(default=None, repr=False)
     profile_version: int = 1
     profile_sha256: str = ""  # of the profile file the analysis used
+    background: object = None  # signal.background.BackgroundLevels of the quiet stretch, or None
 
     @property
     def passed_qc(self) -> bool:
@@ -208,6 +210,7 @@ def analyse_signals(
     events = tuple(timings[s.name] for s in profile.events)
 
     found = [ev for ev in events if ev.found]
+    background = None
     if found:
         first = min(ev.onset_s for ev in found)
         qc.append(
@@ -216,6 +219,10 @@ def analyse_signals(
                 min_snr_db=q.min_snr_db,
             )
         )
+        # the rig's fingerprint: the same quiet stretch, in bands
+        background = _background.background_levels(mic, sample_rate_hz=fs, first_event_s=first,
+                                                   background_max_s=q.background_max_s,
+                                                   fmax_hz=profile.bands.fmax_hz)
     else:
         qc.append(_quality.QCResult("snr", float("nan"), q.min_snr_db, False, "no event found, so no event level"))
 
@@ -257,6 +264,7 @@ def analyse_signals(
         sidecar=sidecar,
         profile_version=profile.version,
         profile_sha256=profile.sha256,
+        background=background if rate_ok else None,
     )
 
 

@@ -20,7 +20,7 @@ import pandas as pd
 
 __all__ = ["CAUSES", "NEXT_STEP", "CellCause", "lot_rigs_signalling", "rig_lots_signalling", "cell_causes",
            "suggest_cause", "actuation_state", "LEVELS", "CHART_STATISTICS", "Decision", "decide", "cell_table",
-           "evidence_words"]
+           "evidence_words", "rig_backgrounds"]
 
 CAUSES = ("recording", "rig", "lot", "unit")
 
@@ -297,16 +297,80 @@ def _cell_causes(chart, units_here: pd.DataFrame, unit_signal: dict, *, referenc
     return {"cells": out, "lots": lot_cause, "rigs": rig_cause}
 
 
+#: Quantiles of a rig's reference background distances that a recording (per recording) or a lot on the rig (the
+#: median of its recordings) must pass to depart (common practice for empirical limits, no source).
+BACKGROUND_RECORDING_Q = 0.99
+BACKGROUND_CELL_Q = 0.95
+#: A rig with fewer recordings in the reference lots takes its first recordings as its reference period.
+BACKGROUND_MIN_REFERENCE = 10
+
+
+def rig_backgrounds(bg: pd.DataFrame, *, reference_lots) -> tuple[pd.DataFrame, set]:
+    """The rig fingerprint, compared with each rig's own reference period (analysis.signal.background).
+
+    bg: one row per actuation (actuation_id, rig, site, lot, recorded_at, levels: (n_bands,) dB). Returns (cells:
+    per (lot, rig) of non-reference lots: n, median distance, limit, departs, first, last, reference_from; the ids
+    of single recordings whose background departs)."""
+    from analysis.signal.background import background_distance
+
+    cols = ["lot", "rig", "site", "n", "median", "limit", "departs", "first", "last", "reference_from"]
+    if bg is None or not len(bg):
+        return pd.DataFrame(columns=cols), set()
+    refs = set(reference_lots)
+    rows, odd = [], set()
+    for rig, g in bg.groupby("rig", sort=False):
+        g = g.sort_values("recorded_at")
+        shapes = {np.shape(v) for v in g["levels"]}
+        if len(shapes) != 1:  # recordings at other sample rates give other bands: compare the common shape only
+            common = max(shapes, key=lambda s_: sum(np.shape(v) == s_ for v in g["levels"]))
+            g = g[[np.shape(v) == common for v in g["levels"]]]
+        ref = g[g["lot"].isin(refs)]
+        where = "reference lots"
+        if len(ref) < BACKGROUND_MIN_REFERENCE:
+            ref, where = g.head(max(BACKGROUND_MIN_REFERENCE, 20)), "first recordings"
+        if len(ref) < BACKGROUND_MIN_REFERENCE:
+            continue
+        ref_levels = np.vstack(ref["levels"].to_list())
+        # Each reference lot against the others (when there are several), so that the limits carry the rig's
+        # own lot-to-lot (day-to-day) variation, as a new lot's comparison does.
+        lots_ref = ref["lot"].to_numpy()
+        held = [lot for lot in dict.fromkeys(lots_ref) if (lots_ref == lot).sum() >= 3 and (lots_ref != lot).sum() >= 3]
+        if len(held) >= 2:
+            d_ref = np.concatenate([background_distance(ref_levels[lots_ref == lot], ref_levels[lots_ref != lot])
+                                    for lot in held])
+            where += " (each against the others)"
+        else:
+            d_ref = background_distance(ref_levels, ref_levels)
+        lim_rec = float(np.quantile(d_ref, BACKGROUND_RECORDING_Q))
+        lim_cell = float(np.quantile(d_ref, BACKGROUND_CELL_Q))
+        new = g[~g["lot"].isin(refs) & ~g["actuation_id"].isin(set(ref["actuation_id"]))]
+        if not len(new):
+            continue
+        d = background_distance(np.vstack(new["levels"].to_list()), ref_levels)
+        new = new.assign(distance=d)
+        odd |= set(new.loc[new["distance"] > lim_rec, "actuation_id"].astype(int))
+        for lot, c in new.groupby("lot", sort=False):
+            med = float(c["distance"].median())
+            rows.append(dict(lot=lot, rig=rig, site=c["site"].iloc[0], n=len(c), median=med, limit=lim_cell,
+                             departs=med > lim_cell, first=c["recorded_at"].min(), last=c["recorded_at"].max(),
+                             reference_from=where))
+    return pd.DataFrame(rows, columns=cols), odd
+
+
 def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, reference_lots: dict,
-           rules: str = "we") -> list[Decision]:
+           rules: str = "we", background: pd.DataFrame | None = None) -> list[Decision]:
     """Every signal at every level, with its suggested cause (the rules at the head of this section).
 
     units: per (event, statistic, lot, rig, unit) rows with site, n (actuations that passed QC with a value),
     mean (of the statistic's natural log), first, last (recording times). limits: {event: {statistic:
     MeanLimits}}. flagged: one row per flagged actuation and event (actuation_id, event or None, statistics
     (list of flag statistics, "qc:<check>" for quality checks), value, limit (of the strongest), site, rig, lot,
-    unit, recorded_at). reference_lots: {event: lots of its active model}.
+    unit, recorded_at). reference_lots: {event: lots of its active model}. background: per-actuation background
+    levels (rig_backgrounds' input), or None.
     """
+    all_refs = sorted({lot for v in reference_lots.values() for lot in v})
+    bg_cells, bg_odd = rig_backgrounds(background, reference_lots=all_refs)
+    bg_departs = {(r.lot, r.rig) for r in bg_cells.itertuples(index=False) if r.departs}
     out: list[Decision] = []
     u = units.copy()
     if len(u):
@@ -390,6 +454,26 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
         elif d.rig in rigs_found and not concentrated and d.cause != "rig":
             out[i] = replace(d, cause="rig", evidence={**d.evidence, "rig_departs_in": rigs_found[d.rig][0]})
         cell_cause[(d.event, d.lot, d.rig)] = out[i].cause
+    # The rig's own background: a lot on a rig whose quiet stretch departs from the rig's reference period is
+    # evidence for the rig, whatever the events show.
+    for rig, g in (bg_cells[bg_cells["departs"].astype(bool)].groupby("rig", sort=False) if len(bg_cells) else []):
+        g = g.sort_values("first")
+        if len(g) < 2:  # one lot is not a rig: it stays evidence for that lot's cells only
+            continue
+        out.append(Decision(
+            "rig", None, "background", _finite(g["median"].max()), _finite(g["limit"].iloc[0]), "background",
+            g["site"].iloc[0], rig, None, None, None, "rig",
+            {"background_lots": list(g["lot"]), "of_lots": int((bg_cells["rig"] == rig).sum()),
+             "reference_from": g["reference_from"].iloc[0]}, g["first"].min(), g["last"].max()))
+        rigs_found.setdefault(rig, (None, g["first"].min()))
+    for i, d in enumerate(out):
+        if d.level == "cell" and d.cause == "unit" and (d.lot, d.rig) in bg_departs \
+                and (d.evidence.get("units") or 0) < 2:
+            out[i] = replace(d, cause="rig", evidence={**d.evidence, "background_departs": True})
+            cell_cause[(d.event, d.lot, d.rig)] = "rig"
+        elif d.level == "cell" and d.cause == "rig" and d.evidence.get("only_this_lot") \
+                and (d.lot, d.rig) in bg_departs:
+            out[i] = replace(d, evidence={**d.evidence, "background_departs": True})
     for (event, lot, unit), (z, row, lim_y, stat) in per_unit.items():
         cause = cell_cause.get((event, lot, row.rig))
         if cause not in ("lot", "rig"):
@@ -410,6 +494,8 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
                 cause, via = "lot", "lot"
             elif cause is None and r.rig in rigs_found and _after(r.recorded_at, rigs_found[r.rig][1]):
                 cause, via = "rig", "rig"
+            if cause is None and int(r.actuation_id) in bg_odd:
+                cause, via = "recording", "background"
             if cause is None:
                 cause = "unit"
             ev = {"statistics": stats_, "via": via}
@@ -440,7 +526,7 @@ def evidence_words(d: Decision) -> str:
     e = d.evidence or {}
     what = {"event_spe_ratio": "event residual", "trajectory_distance": "trajectory distance",
             "t2_ratio": "Hotelling T²", "spe_ratio": "SPE"}.get(d.statistic, d.statistic)
-    if d.cause == "recording":
+    if d.cause == "recording" and e.get("checks"):
         return f"the recording failed its quality check(s): {', '.join(e.get('checks', []))}"
     if d.level == "cell" and e.get("lot_departs_in"):
         return (f"lot {d.lot} on rig {d.rig} departs ({e.get('z')} chart SD, {what}); lot {d.lot} departs as a "
@@ -451,6 +537,8 @@ def evidence_words(d: Decision) -> str:
     if d.level == "actuation":
         via = {"unit": f"its unit {d.unit} signals too", "cell": f"its cell (lot {d.lot}, rig {d.rig}) signals",
                "lot": f"lot {d.lot} departs as a whole", "rig": f"rig {d.rig} departs since its change began",
+               "background": "its own background before the first event departs from the rig's, the others' "
+                             "do not: look at this recording",
                None: f"neither unit {d.unit} nor lot {d.lot} on rig {d.rig} signals as a whole"}[e.get("via")]
         return f"flagged on {', '.join(map(str, e.get('statistics', [])))}; {via}"
     if d.level == "unit":
@@ -465,6 +553,12 @@ def evidence_words(d: Decision) -> str:
     if d.cause == "lot" and e.get("rigs_departing"):
         return (f"lot {d.lot} departs on {len(e['rigs_departing'])} of {e.get('rigs')} rigs "
                 f"({', '.join(e['rigs_departing'])}); lot effect {e.get('lot_effect_sd')} chart SD ({what})")
+    if d.level == "rig" and d.statistic == "background":
+        return (f"rig {d.rig}: its background before the first event departs from its {e.get('reference_from')} "
+                f"in lots {', '.join(e.get('background_lots', []))} (of {e.get('of_lots')} new lots)")
+    if d.level == "cell" and e.get("background_departs") and d.cause == "rig":
+        return (f"lot {d.lot} on rig {d.rig} departs ({e.get('z')} chart SD, {what}) and the rig's own background "
+                "departs during this lot: look at the rig")
     if d.level == "rig" or (d.cause == "rig" and not e.get("only_this_lot")):
         parts = []
         if e.get("lots_departing"):

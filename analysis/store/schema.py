@@ -227,6 +227,19 @@ verdicts = Table(
     Index("ix_verdicts_flag", "flag_id"),
 )
 
+#: The rig's background before the first event of each actuation (analysis.signal.background): band levels in
+#: dB re full scale, float32, at float64 band centres.
+backgrounds = Table(
+    "backgrounds", metadata,
+    Column("actuation_id", Integer, ForeignKey("actuations.id"), primary_key=True),
+    Column("start_s", Float),
+    Column("duration_s", Float),
+    Column("level_dbfs", Float),
+    Column("n_bands", Integer, nullable=False),
+    Column("levels_f32", LargeBinary, nullable=False),
+    Column("band_centres_f64", LargeBinary, nullable=False),
+)
+
 #: One row per raised signal at any level (analysis.triage.LEVELS), kept up to date by the worker and by
 #: re-scoring: a signal raised again keeps its row (last_seen moves); one no longer raised stays, inactive.
 #: key: what it is about (level|event|lot|rig|unit|actuation), unique per profile. Names are kept as text, as

@@ -23,11 +23,11 @@ from analysis.monitor.levels import GROUP_STATISTICS, MeanLimits
 from analysis.triage import decide, evidence_words
 
 from . import schema as db
-from .codec import num
+from .codec import from_f32, num
 from .codec import text as stored_text
 from .queries._base import active_model_ids, df, placed_full
 
-__all__ = ["refresh_signals", "unit_summaries", "model_levels"]
+__all__ = ["refresh_signals", "unit_summaries", "model_levels", "backgrounds"]
 
 
 def model_levels(conn, profile: str) -> tuple[dict, dict, dict]:
@@ -112,6 +112,22 @@ def _flagged(conn, profile: str) -> pd.DataFrame:
     return out[out["event"].isna() | ~out["actuation_id"].isin(qc_ids)].reset_index(drop=True)
 
 
+def backgrounds(conn, profile: str) -> pd.DataFrame:
+    """Per actuation of ``profile`` that passed QC: actuation_id, rig, site, lot, recorded_at, levels (the
+    background band levels, dB)."""
+    a, b = db.actuations, db.backgrounds
+    stmt = (select(a.c.id.label("actuation_id"), db.rigs.c.name.label("rig"), db.sites.c.name.label("site"),
+                   db.lots.c.name.label("lot"), a.c.recorded_at, b.c.n_bands, b.c.levels_f32)
+            .select_from(placed_full().join(b, b.c.actuation_id == a.c.id))
+            .where(and_(a.c.profile == profile, a.c.passed_qc.is_(True))).order_by(a.c.id))
+    rows = conn.execute(stmt).all()
+    return pd.DataFrame({
+        "actuation_id": [r.actuation_id for r in rows], "rig": [r.rig for r in rows],
+        "site": [r.site for r in rows], "lot": [r.lot for r in rows],
+        "recorded_at": pd.to_datetime([r.recorded_at for r in rows]),
+        "levels": [from_f32(r.levels_f32, (r.n_bands,)).astype(float) for r in rows]})
+
+
 def _lock(conn, profile: str) -> None:
     if conn.dialect.name == "postgresql":
         key = zlib.crc32(f"harken.signals.{profile}".encode()) - 2**31
@@ -133,7 +149,7 @@ def refresh_signals(conn, profile: str, *, now=None) -> dict:
     limits, refs, ids = model_levels(conn, profile)
     units = unit_summaries(conn, profile, ids)
     flagged = _flagged(conn, profile)
-    decisions = decide(units, limits, flagged, reference_lots=refs)
+    decisions = decide(units, limits, flagged, reference_lots=refs, background=backgrounds(conn, profile))
     s = db.signals
     have = {r.key: (r.id, r.active) for r in conn.execute(select(s.c.key, s.c.id, s.c.active)
                                                            .where(s.c.profile == profile))}

@@ -20,6 +20,7 @@ from .integrity import flags_digest, model_digest, qc_digest
 from .schema import (
     actuations,
     audit_log,
+    backgrounds,
     events,
     flags,
     lots,
@@ -195,7 +196,7 @@ def commit_analyses(conn, cache, items: list[Analysed], *, worker) -> list[int |
         ))
     act_ids = list(conn.execute(
         actuations.insert().returning(actuations.c.id, sort_by_parameter_order=True), act_rows).scalars())
-    qc_rows, ev_rows, flag_rows = [], [], []
+    qc_rows, ev_rows, flag_rows, bg_rows = [], [], [], []
     by_model: dict = {}
     for it, actuation_id in zip(keep, act_ids):
         res = it.result
@@ -203,6 +204,11 @@ def commit_analyses(conn, cache, items: list[Analysed], *, worker) -> list[int |
         flag_rows += [dict(f, actuation_id=actuation_id) for f in qc_flags_of[it.recording_id]]
         for ev in res.events:
             ev_rows.append(_event_row(actuation_id, ev, res.features.get(ev.name)))
+        bg = getattr(res, "background", None)
+        if bg is not None:
+            bg_rows.append(dict(actuation_id=actuation_id, start_s=num(bg.start_s), duration_s=num(bg.duration_s),
+                                level_dbfs=num(bg.level_dbfs), n_bands=int(bg.levels_db.size),
+                                levels_f32=f32(bg.levels_db), band_centres_f64=f64(bg.band_centres_hz)))
         for event, (model_id, scored) in it.scored.items():
             by_model.setdefault((model_id, event), []).append((actuation_id, scored))
     conn.execute(qc_results.insert(), qc_rows)
@@ -210,6 +216,8 @@ def commit_analyses(conn, cache, items: list[Analysed], *, worker) -> list[int |
         conn.execute(events.insert(), ev_rows)
     if flag_rows:
         conn.execute(flags.insert(), flag_rows)
+    if bg_rows:
+        conn.execute(backgrounds.insert(), bg_rows)
     for (model_id, event), scored in by_model.items():
         insert_scores(conn, model_id, event, scored)
     # The decisions at every level move with each batch, in the same transaction as the actuations behind them.

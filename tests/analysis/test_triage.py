@@ -170,3 +170,49 @@ def test_normal_data_raise_few_signals():
     raised = [len([x for x in decide(units_table(s), LIMITS, NO_FLAGS, reference_lots={"ev": REF})
                    if x.level in ("lot", "rig", "unit")]) for s in range(10, 20)]
     assert sum(raised) <= 10, raised  # 10 tables of 64 new units, 8 new lots: about one signal per table at most
+
+
+def backgrounds(seed, *, whine_rig=None, whine_lots=(), one_odd=None):
+    """Per-actuation background levels (12 bands, dB): each rig its own spectrum, 0.5 dB noise per band, lot
+    to lot 0.2 dB; a whine adds 6 dB in two bands."""
+    rng = np.random.default_rng(seed)
+    rows, aid = [], 0
+    base = {rig: rng.normal(-70, 5, 12) for rig in RIGS}
+    t = pd.Timestamp("2026-01-05")
+    for lot in LOTS:
+        lot_off = rng.normal(0, 0.2, 12)
+        for rig in RIGS:
+            for _ in range(16):
+                aid += 1
+                lv = base[rig] + lot_off + rng.normal(0, 0.5, 12)
+                if rig == whine_rig and lot in whine_lots:
+                    lv[7:9] += 6.0
+                if aid == one_odd:
+                    lv += 8.0
+                rows.append(dict(actuation_id=aid, rig=rig, site="S", lot=lot, recorded_at=t, levels=lv))
+                t += pd.Timedelta(minutes=5)
+    return pd.DataFrame(rows)
+
+
+def test_a_rig_whose_background_departs_is_evidence_for_the_rig():
+    from analysis.triage import rig_backgrounds
+
+    bg = backgrounds(6, whine_rig="R2", whine_lots=LOTS[9:])
+    cells, odd = rig_backgrounds(bg, reference_lots=REF)
+    hit = cells[cells["departs"]]
+    assert set(zip(hit["lot"], hit["rig"])) == {(lot, "R2") for lot in LOTS[9:]}
+    d = decide(units_table(6), LIMITS, NO_FLAGS, reference_lots={"ev": REF}, background=bg)
+    rigs = [x for x in by(d, "rig") if x.statistic == "background"]
+    assert [x.rig for x in rigs] == ["R2"] and "background" in evidence_words(rigs[0])
+    assert set(rigs[0].evidence["background_lots"]) == set(LOTS[9:])
+
+
+def test_one_recording_whose_background_departs_points_at_the_recording():
+    bg = backgrounds(7, one_odd=400)
+    row = bg[bg["actuation_id"] == 400].iloc[0]
+    flagged = pd.DataFrame([dict(actuation_id=400, event="ev", statistics=["spe"], value=3.0, limit=1.0,
+                                 site="S", rig=row["rig"], lot=row["lot"], unit="x", recorded_at=row["recorded_at"])])
+    d = decide(units_table(7), LIMITS, flagged, reference_lots={"ev": REF}, background=bg)
+    act = by(d, "actuation")
+    assert act[0].cause == "recording" and "background" in evidence_words(act[0])
+    assert not [x for x in by(d, "rig") if x.statistic == "background"]  # one recording is not a rig

@@ -1,6 +1,9 @@
-"""The signals table: decisions at every level (actuation, unit, cell, lot, rig) with their suggested causes.
+"""The signals table: decisions at every level (actuation, unit, cell, lot, rig) with their suggested causes; and
+the backgrounds table: each actuation's band levels of the quiet stretch before its first event (the rig's
+fingerprint).
 
-Empty after the upgrade: the next worker batch, `harken rescore` or a reference build fills it.
+Both are empty after the upgrade: the next worker batch, `harken rescore` or a reference build fills the signals;
+backgrounds come with recordings analysed from now on.
 
 Revision ID: 0003
 Revises: 0002
@@ -17,6 +20,16 @@ depends_on = None
 
 
 def upgrade() -> None:
+    op.create_table(
+        "backgrounds",
+        sa.Column("actuation_id", sa.Integer, sa.ForeignKey("actuations.id"), primary_key=True),
+        sa.Column("start_s", sa.Float),
+        sa.Column("duration_s", sa.Float),
+        sa.Column("level_dbfs", sa.Float),
+        sa.Column("n_bands", sa.Integer, nullable=False),
+        sa.Column("levels_f32", sa.LargeBinary, nullable=False),
+        sa.Column("band_centres_f64", sa.LargeBinary, nullable=False),
+    )
     op.create_table(
         "signals",
         sa.Column("id", sa.Integer, primary_key=True),
@@ -52,3 +65,4 @@ def downgrade() -> None:
     op.drop_index("ix_signals_actuation", table_name="signals")
     op.drop_index("ix_signals_active", table_name="signals")
     op.drop_table("signals")
+    op.drop_table("backgrounds")
