@@ -212,6 +212,39 @@ def rig_distribution_figure(edges, hist: pd.DataFrame, summary: pd.DataFrame, st
     return apply_look(fig, meeting=meeting, height=140 + 90 * len(order))
 
 
+def rig_fingerprint_figure(cells: pd.DataFrame, *, meeting: bool = False) -> go.Figure:
+    """Each rig's background distance from its reference period, lot by lot in time order (one line per rig,
+    its limit dashed, departing lots ringed)."""
+    c = _c(meeting)
+    if cells is None or not len(cells):
+        return empty_figure("No backgrounds to compare yet (they need reference lots and recordings analysed "
+                            "with this version).", meeting=meeting)
+    order = list(dict.fromkeys(cells.sort_values("first")["lot"]))
+    pos = {lot: i for i, lot in enumerate(order)}
+    fig = go.Figure()
+    for k, (rig, g) in enumerate(cells.groupby("rig", sort=True)):
+        g = g.sort_values("first")
+        colour = c["series"][k % len(c["series"])]
+        fig.add_trace(go.Scatter(
+            x=g["lot"].map(pos), y=g["median"], mode="lines+markers", name=label(rig),
+            line=dict(width=c["line"], color=colour), marker=dict(size=c["marker"] + 2),
+            text=[f"{full(rig)}, lot {full(lt)}: median distance {m:.2f} over {n} recordings (limit {lim:.2f})"
+                  for lt, m, n, lim in zip(g["lot"], g["median"], g["n"], g["limit"])],
+            hovertemplate="%{text}<extra></extra>"))
+        fig.add_trace(go.Scatter(x=[-0.3, len(order) - 0.7], y=[g["limit"].iloc[0]] * 2, mode="lines",
+                                 line=dict(color=colour, dash="dash", width=1), name=f"{label(rig)} limit",
+                                 showlegend=False, hoverinfo="skip"))
+        dep = g[g["departs"].astype(bool)]
+        if len(dep):
+            fig.add_trace(go.Scatter(
+                x=dep["lot"].map(pos), y=dep["median"], mode="markers", showlegend=False, hoverinfo="skip",
+                marker=dict(size=c["marker"] * 2.4, color="rgba(0,0,0,0)", line=dict(color=c["flag"], width=2))))
+    fig.update_xaxes(tickmode="array", tickvals=list(range(len(order))), ticktext=[label(x) for x in order],
+                     title_text="lot (time order)")
+    fig.update_yaxes(type="log", title_text="background distance from the rig's reference")
+    return apply_look(fig, meeting=meeting, height=380)
+
+
 def rig_rates_figure(summary: pd.DataFrame, *, meeting: bool = False) -> go.Figure:
     """Flags and quality-check failures per 1,000 actuations, one pair of bars per rig (numbers on the bars)."""
     c = _c(meeting)

@@ -84,6 +84,11 @@ def layout(ctx, q: dict):
             card(html.H2("Flag and quality-check failure rates"),
                  dcc.Graph(id="rigs-rates", config={"displaylogo": False})),
         ]),
+        card(html.H2("Rig background over time"),
+             html.P("What each rig sounds like before the first event of a recording (hum, drive noise, whines), "
+                    "compared with the rig's own reference lots: a rig whose background departs in two lots is a "
+                    "rig signal.", className="muted"),
+             dcc.Graph(id="rigs-fingerprint", config={"displaylogo": False})),
         dcc.Store(id="rigs-url"),
     ])
 
@@ -92,20 +97,31 @@ def register(app, ctx):
     register_url_state(app, NAME, URL_STATE)
 
     @app.callback(Output("rigs-numbers", "children"), Output("rigs-distribution", "figure"),
-                  Output("rigs-rates", "figure"),
+                  Output("rigs-rates", "figure"), Output("rigs-fingerprint", "figure"),
                   Input("rigs-profile", "value"), Input("rigs-event", "value"), Input("rigs-stat", "value"),
                   Input("rigs-site", "value"), Input("rigs-dates", "start_date"), Input("rigs-dates", "end_date"),
                   Input("app-meeting", "data"))
-    @guarded("children", "figure", "figure")
+    @guarded("children", "figure", "figure", "figure")
     def update(profile, event, stat_key, sites_, start, end, meeting):
         meeting = bool(meeting)
         if not event:
             e = figures.empty_figure("No events with results yet.", meeting=meeting)
-            return html.P("No results yet."), e, e
+            return html.P("No results yet."), e, e, e
         stat = statistic(stat_key)
         data = rigs_data(ctx.store, stat_key, event, filters_from(profile, sites_, None, start, end),
                          cache=ctx.drill_cache)
         return (numbers_table(data, stat),
                 figures.rig_distribution_figure(data["edges"], data["hist"], data["summary"], stat,
                                                 reference=data["reference"], meeting=meeting),
-                figures.rig_rates_figure(data["summary"], meeting=meeting))
+                figures.rig_rates_figure(data["summary"], meeting=meeting),
+                figures.rig_fingerprint_figure(fingerprint_data(ctx.store, profile, sites_), meeting=meeting))
+
+
+def fingerprint_data(store, profile, sites_=None):
+    """The rig fingerprint cells of ``profile`` (analysis.store.queries.rig_fingerprint), for the chosen sites."""
+    if not profile:
+        return None
+    with store.read() as conn:
+        cells = queries.rig_fingerprint(conn, profile)
+    sites_ = [s for s in (sites_ or []) if s]
+    return cells[cells["site"].isin(sites_)] if sites_ else cells

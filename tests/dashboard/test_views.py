@@ -165,6 +165,20 @@ def test_lots_rings_the_stored_signals_and_lists_units(ctx):
     assert units is not None and len(units.children[1].children) >= 1
 
 
+def test_rigs_shows_each_rig_background_over_its_lots(ctx):
+    cells = rigs.fingerprint_data(ctx.store, "demo-dpi")
+    assert len(cells) and set(cells.columns) >= {"lot", "rig", "median", "limit", "departs"}
+    with ctx.store.read() as conn:
+        lots_new = set(queries.lot_names(conn)) - set(queries.reference_lots(conn, "demo-dpi", "dose_release"))
+    assert set(cells["lot"]) <= lots_new and (cells["limit"] > 0).all()
+    fig = rigs.figures.rig_fingerprint_figure(cells)
+    lines = [t for t in fig.data if t.mode == "lines+markers"]
+    assert len(lines) == cells["rig"].nunique()
+    assert rigs.figures.rig_fingerprint_figure(None).layout.annotations  # an empty store says why
+    one_site = cells["site"].iloc[0]
+    assert set(rigs.fingerprint_data(ctx.store, "demo-dpi", [one_site])["site"]) == {one_site}
+
+
 def test_today_shows_quarantined_recordings(store_copy, tmp_path):
     from analysis.store import Store
 

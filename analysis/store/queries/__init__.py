@@ -6,7 +6,7 @@ through these (and the ``Store`` methods that wrap the common ones); none of the
               actuation_detail, band_levels, event_levels, trajectory, trajectories, unscored, latest_per_rig,
               lot_actuations, lot_names, audit_log, check_integrity, kept_files
 - models:     models, load_model, active_models, reference_lots, typical_reference_actuation
-- signals:    signals, actuation_causes, units_table
+- signals:    signals, actuation_causes, units_table, rig_fingerprint
 - aggregates: choices, lot_points, actuation_cloud, rig_summary, reference_summary, rig_histogram,
               triage_evidence, flag_summary, fingerprint
 
@@ -47,7 +47,7 @@ from .records import (
     trajectory,
     unscored,
 )
-from .signals import SIGNAL_COLUMNS, actuation_causes, signals, units_table
+from .signals import SIGNAL_COLUMNS, actuation_causes, rig_fingerprint, signals, units_table
 
 __all__ = [
     "schema_version", "recordings", "quarantine", "recent_quarantine", "actuations", "export_actuations", "flags",
@@ -56,4 +56,5 @@ __all__ = [
     "models", "load_model", "active_models", "reference_lots", "typical_reference_actuation",
     "choices", "lot_points", "actuation_cloud", "rig_summary", "reference_summary", "rig_histogram",
     "triage_evidence", "flag_summary", "fingerprint", "signals", "actuation_causes", "units_table", "SIGNAL_COLUMNS",
+    "rig_fingerprint",
 ]

@@ -10,7 +10,7 @@ from .. import schema as db
 from ..errors import StoreError
 from ._base import df
 
-__all__ = ["signals", "SIGNAL_COLUMNS", "actuation_causes", "units_table"]
+__all__ = ["signals", "SIGNAL_COLUMNS", "actuation_causes", "units_table", "rig_fingerprint"]
 
 #: What `harken export signals` writes, in this order.
 SIGNAL_COLUMNS = ["level", "event", "statistic", "value", "limit", "rule", "site", "rig", "lot", "unit",
@@ -88,3 +88,16 @@ def units_table(conn, profile: str, event: str, *, lot: str | None = None, rig: 
     out["signal"] = out["value"] > out["limit"]
     out["reference"] = out["lot"].isin(set(refs.get(event, ())))
     return out[cols].sort_values(["lot", "rig", "unit"]).reset_index(drop=True)
+
+
+def rig_fingerprint(conn, profile: str) -> pd.DataFrame:
+    """Each rig's background over its lots: per (lot, rig) of non-reference lots, the median distance of its
+    recordings' backgrounds from the rig's reference period, the limit, whether it departs, first and last
+    recording (analysis.triage.rig_backgrounds, the rule the signals use)."""
+    from analysis.triage import rig_backgrounds
+
+    from ..signals import backgrounds, model_levels
+
+    _, refs, _ = model_levels(conn, profile)
+    cells, _ = rig_backgrounds(backgrounds(conn, profile), reference_lots=sorted({x for v in refs.values() for x in v}))
+    return cells.sort_values(["rig", "first"]).reset_index(drop=True)
