@@ -185,4 +185,6 @@ def rescore(store, profile: str, *, events: Sequence[str] | None = None, model_i
                 items += list(zip(ok_ids, score_levels(model, np.stack(ok_x))))
             store.insert_scores(mid, event, items, refresh_profile=profile)
             total += len(items)
+    if not total:  # nothing new to score: the signals are still brought up to date (e.g. after an upgrade)
+        store.refresh_signals(profile)
     return total

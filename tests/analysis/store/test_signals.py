@@ -152,3 +152,17 @@ def test_unknown_signal_levels_are_refused(small_store, level):
 
     with Store.open(url, files_dir=files) as store, store.read() as conn, pytest.raises(StoreError, match="bogus"):
         queries.signals(conn, levels=(level,))
+
+
+def test_rescore_with_nothing_to_score_still_fills_the_signals(store_copy):
+    # as after an upgrade to the signals revision: the table is empty until something refreshes it
+    from analysis.store.schema import signals as table
+
+    with Store.open(store_copy) as store:
+        n = len(store.signals())
+        with store.write() as conn:
+            conn.execute(table.delete())
+        assert store.signals().empty
+    code, _, _ = run_cli("rescore", "--store", store_copy)
+    with Store.open(store_copy) as store:
+        assert code == 0 and len(store.signals()) == n > 0
