@@ -239,8 +239,10 @@ def _cell_causes(chart, units_here: pd.DataFrame, unit_signal: dict, *, referenc
     new = z[~z["lot"].isin(set(reference_lots))]
     # A cell whose departure is carried by units that signal on their own is about those units, not its rig.
     by_units: dict = {}
+    groups = {k: g for k, g in units_here.groupby(["lot", "rig"], sort=False)}
+    empty = units_here.iloc[0:0]
     for r in new.itertuples(index=False):
-        here = units_here[(units_here["lot"] == r.lot) & (units_here["rig"] == r.rig)]
+        here = groups.get((r.lot, r.rig), empty)
         hot = [u for u in here["unit"] if unit_signal.get((r.lot, u))]
         # Concentrated: a minority of the cell's units (one of two, up to a third of many) carries it.
         if not hot or len(hot) > max(1, len(here) // 3):

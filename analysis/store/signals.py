@@ -99,14 +99,16 @@ def _flagged(conn, profile: str) -> pd.DataFrame:
     fl["event"] = fl["event"].where(~fl["qc"], None)
     ratio = fl["value"].astype(float) / fl["limit_value"].astype(float).where(fl["limit_value"] > 0)
     fl["ratio"] = ratio.fillna(np.inf)
-    rows = []
-    for (aid, event), g in fl.groupby(["actuation_id", fl["event"].fillna("")], sort=False):
-        g = g.sort_values(["qc", "ratio"], ascending=[False, False])
-        top = g.iloc[0]
-        rows.append(dict(actuation_id=int(aid), event=event or None, statistics=list(dict.fromkeys(g["statistic"])),
-                         value=top["value"], limit=top["limit_value"], site=top["site"], rig=top["rig"],
-                         lot=top["lot"], unit=top["unit"], recorded_at=top["recorded_at"]))
-    out = pd.DataFrame(rows, columns=cols)
+    fl["ekey"] = fl["event"].fillna("")
+    fl = fl.sort_values(["actuation_id", "ekey", "qc", "ratio"], ascending=[True, True, False, False], kind="stable")
+    top = fl.drop_duplicates(["actuation_id", "ekey"]).set_index(["actuation_id", "ekey"])
+    names = fl.groupby(["actuation_id", "ekey"], sort=False)["statistic"].agg(lambda v: list(dict.fromkeys(v)))
+    top = top.join(names.rename("statistics")).reset_index()
+    rows = pd.DataFrame({"actuation_id": top["actuation_id"].astype(int),
+                         "event": top["ekey"].where(top["ekey"] != "", None), "statistics": top["statistics"],
+                         "value": top["value"], "limit": top["limit_value"], "site": top["site"], "rig": top["rig"],
+                         "lot": top["lot"], "unit": top["unit"], "recorded_at": top["recorded_at"]})
+    out = rows[cols]
     # An actuation that failed a quality check gets one signal (the recording), not one per event as well.
     qc_ids = set(out.loc[out["event"].isna(), "actuation_id"])
     return out[out["event"].isna() | ~out["actuation_id"].isin(qc_ids)].reset_index(drop=True)
