@@ -328,7 +328,7 @@ def rig_backgrounds(bg: pd.DataFrame, *, reference_lots) -> tuple[pd.DataFrame, 
             g = g[[np.shape(v) == common for v in g["levels"]]]
         ref = g[g["lot"].isin(refs)]
         where = "reference lots"
-        if len(ref) < BACKGROUND_MIN_REFERENCE:
+        if len(ref) < BACKGROUND_MIN_REFERENCE:  # a rig added after the reference: its own first recordings
             ref, where = g.head(max(BACKGROUND_MIN_REFERENCE, 20)), "first recordings"
         if len(ref) < BACKGROUND_MIN_REFERENCE:
             continue

@@ -4,7 +4,8 @@ What a rig sounds like when nothing is being fired (mains hum and its harmonics,
 acoustic fingerprint. The quiet stretch is the one the SNR check uses: it ends ``guard_s`` before the first
 event and starts at most ``background_max_s`` earlier (or at the recording's start). Its power spectrum is the
 Hann-windowed periodogram of the whole stretch (one window: the finest frequency resolution the stretch allows),
-summed into one-third-octave bands (analysis.signal.bands); bands narrower than two frequency bins are left out,
+summed into one-third-octave bands (analysis.signal.bands; each bin to the band its frequency falls in); bands
+narrower than two frequency bins are left out,
 so every band level rests on at least two bins. Levels are dB re full scale (a full-scale sine reads -3.01 dB in
 its band).
 
@@ -23,7 +24,7 @@ from scipy import signal as _signal
 
 from analysis.errors import ParameterError
 from analysis.signal._common import LEVEL_FLOOR_DBFS, as_signal, number
-from analysis.signal.bands import band_matrix, third_octave_bands
+from analysis.signal.bands import third_octave_bands
 
 __all__ = ["BackgroundLevels", "background_levels", "background_distance", "BACKGROUND_FMIN_HZ"]
 
@@ -77,7 +78,10 @@ def background_levels(x, *, sample_rate_hz: float, first_event_s: float, backgro
     keep = (layout.upper_hz - layout.lower_hz) >= 2.0 * df
     if not keep.any():
         return None
-    power = (psd * df) @ band_matrix(freqs, df, layout, nyquist_hz=fs / 2)
+    # Each bin goes to the band its frequency falls in (bands are at least two bins wide: see `keep`).
+    band_of = np.searchsorted(layout.upper_hz, freqs, side="right")
+    inside = (freqs >= layout.lower_hz[0]) & (band_of < layout.n_bands)
+    power = np.bincount(band_of[inside], weights=(psd * df)[inside], minlength=layout.n_bands)
     with np.errstate(divide="ignore"):
         levels = np.where(power > 0, 10.0 * np.log10(np.maximum(power, 1e-300)), LEVEL_FLOOR_DBFS)
     ms = float(np.mean(np.square(seg)))

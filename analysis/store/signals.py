@@ -151,7 +151,9 @@ def refresh_signals(conn, profile: str, *, now=None) -> dict:
     limits, refs, ids = model_levels(conn, profile)
     units = unit_summaries(conn, profile, ids)
     flagged = _flagged(conn, profile)
-    decisions = decide(units, limits, flagged, reference_lots=refs, background=backgrounds(conn, profile))
+    # The rig's background is compared with its reference lots: none before the first reference is built.
+    bg = backgrounds(conn, profile) if ids else None
+    decisions = decide(units, limits, flagged, reference_lots=refs, background=bg)
     s = db.signals
     have = {r.key: (r.id, r.active) for r in conn.execute(select(s.c.key, s.c.id, s.c.active)
                                                            .where(s.c.profile == profile))}
