@@ -156,7 +156,8 @@ def signal_lines(signals: pd.DataFrame) -> list[str]:
     lines = ["signals in the store (lots and rigs; suggested cause and evidence):"]
     for r in wide.itertuples(index=False):
         where = f"lot {r.lot}" if r.level == "lot" else f"rig {r.rig}"
-        lines.append(f"  {where}, {r.event} -> {r.cause}: {r.evidence}")
+        what = r.event if isinstance(r.event, str) and r.event else "background"
+        lines.append(f"  {where}, {what} -> {r.cause}: {r.evidence}")
     if not len(wide):
         lines.append("  no lot or rig signals")
     for level in ("cell", "unit"):
