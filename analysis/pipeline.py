@@ -184,6 +184,8 @@ def analyse_signals(
         mic, sample_rate_hz=fs, sample_rate_min_hz=profile.sample_rate_min_hz,
         sample_rate_max_hz=profile.sample_rate_max_hz, min_duration_s=profile.min_duration_s,
         clip_level=q.clip_level, clip_min_run=q.clip_min_run, max_clipped_fraction=q.max_clipped_fraction,
+        clip_peak_tolerance=q.clip_peak_tolerance, clip_bin_width=q.clip_bin_width,
+        clip_pileup_ratio=q.clip_pileup_ratio,
         max_dropout_s=q.max_dropout_s, max_dc_offset=q.max_dc_offset, min_rms_dbfs=q.min_rms_dbfs,
     ))
 

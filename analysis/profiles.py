@@ -21,6 +21,7 @@ from typing import Any
 
 from .errors import ProfileError
 from .signal.events import DETECTORS
+from .signal.quality import PEAK_TOLERANCE
 
 __all__ = [
     "BandSpec",
@@ -79,6 +80,9 @@ class QualityLimits:
     clip_level: float = 0.999
     clip_min_run: int = 3
     max_clipped_fraction: float = 1e-4
+    clip_peak_tolerance: float = PEAK_TOLERANCE  # FS: within this of the recording's own peak counts as at it
+    clip_bin_width: float = 0.01                 # histogram bin for a pile-up, as a fraction of the own peak
+    clip_pileup_ratio: float = 3.0               # end bin over the nearest occupied bin below that is a pile-up
     max_dropout_s: float = 0.002
     max_dc_offset: float = 0.01
     min_rms_dbfs: float = -70.0
@@ -352,6 +356,11 @@ def parse_profile(data: dict[str, Any], *, source, sha256: str = "") -> DevicePr
         clip_min_run=c.integer(q, "clip_min_run", "quality.clip_min_run", qd.clip_min_run, minimum=1),
         max_clipped_fraction=c.number(q, "max_clipped_fraction", "quality.max_clipped_fraction",
                                       qd.max_clipped_fraction, minimum=0.0),
+        clip_peak_tolerance=c.number(q, "clip_peak_tolerance", "quality.clip_peak_tolerance", qd.clip_peak_tolerance,
+                                     positive=True),
+        clip_bin_width=c.number(q, "clip_bin_width", "quality.clip_bin_width", qd.clip_bin_width, positive=True),
+        clip_pileup_ratio=c.number(q, "clip_pileup_ratio", "quality.clip_pileup_ratio", qd.clip_pileup_ratio,
+                                   minimum=1.0),
         max_dropout_s=c.number(q, "max_dropout_s", "quality.max_dropout_s", qd.max_dropout_s, positive=True),
         max_dc_offset=c.number(q, "max_dc_offset", "quality.max_dc_offset", qd.max_dc_offset, minimum=0.0),
         min_rms_dbfs=c.number(q, "min_rms_dbfs", "quality.min_rms_dbfs", qd.min_rms_dbfs),
@@ -361,6 +370,13 @@ def parse_profile(data: dict[str, Any], *, source, sha256: str = "") -> DevicePr
     )
     if quality.clip_level > 1.0:
         c.fail("quality.clip_level", f"is a fraction of full scale and must be <= 1, got {quality.clip_level:g}")
+    if quality.clip_peak_tolerance > 0.01:
+        c.fail("quality.clip_peak_tolerance",
+               f"is in full-scale units and must be <= 0.01 (one 16-bit step is 3.05e-05), "
+               f"got {quality.clip_peak_tolerance:g}")
+    if quality.clip_bin_width > 0.5:
+        c.fail("quality.clip_bin_width",
+               f"is a fraction of the recording's own peak and must be <= 0.5, got {quality.clip_bin_width:g}")
 
     raw_events = data.get("events")
     if not isinstance(raw_events, list) or not raw_events:

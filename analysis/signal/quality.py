@@ -27,6 +27,7 @@ __all__ = [
     "QCResult",
     "CHECK_NAMES",
     "LEVEL_FLOOR_DBFS",
+    "PEAK_TOLERANCE",
     "check_clipping",
     "check_dropouts",
     "check_dc_offset",
@@ -76,25 +77,135 @@ def _ms(seconds: float) -> str:
 
 # ---------------------------------------------------------------- checks
 
-def check_clipping(x, *, clip_level: float = 0.999, min_run: int = 3, max_fraction: float = 1e-4) -> QCResult:
-    """Fraction of samples in runs of >= min_run consecutive samples with |x| >= clip_level (full scale).
+#: Within this of a recording's own peak counts as at the peak (full-scale units): one step of a 16-bit file.
+PEAK_TOLERANCE = 2.0 ** -15
 
-    value: that fraction (0..1); limit: max_fraction; passed: value <= max_fraction. NaN samples are never at
-    the rail, ±inf always are.
+
+@dataclass(frozen=True)
+class _Pile:
+    """One histogram end bin against the nearest occupied bin below it (counts of samples; bin width in FS)."""
+
+    excess: int      # end - ratio·below when that is at least min_run samples, else 0
+    end: int
+    below: int
+    bin_fs: float
+
+
+@dataclass(frozen=True)
+class _Side:
+    """One polarity's extreme: its peak (FS), its flat runs at the peak and its histogram pile-up."""
+
+    sign: str        # "+" or "-"
+    peak: float      # the largest value of sign·x
+    flat: int        # samples in flat runs at the peak (0 when the top is rounded)
+    flat_runs: int
+    pile: _Pile
+
+
+def _pile(d: np.ndarray, bin_fs: float, *, ratio: float, run: int) -> _Pile:
+    """The end bin (d < bin_fs, d = distance below the peak) against the nearest bin below it that holds samples.
+
+    The nearest occupied bin rather than the adjacent one: a tone whose period is a whole number of samples takes
+    only a few values, each repeated once a period, with empty bins between them.
+    """
+    end = int(np.count_nonzero(d < bin_fs))
+    steps = np.floor(d[d >= bin_fs] / bin_fs)
+    below = int(np.count_nonzero(steps == steps.min())) if steps.size else 0
+    excess = end - ratio * below
+    return _Pile(int(math.floor(excess)) if excess >= run else 0, end, below, bin_fs)
+
+
+def _side(y: np.ndarray, sign: str, *, tolerance: float, run: int, bin_width: float, ratio: float) -> _Side | None:
+    peak = float(y.max())
+    if peak <= 0.0:
+        return None
+    d = peak - y
+    # A rounded (locally quadratic) top puts at most 1 + √2 times as many samples within a band of the peak as in
+    # the band of the same width below it; a flat top puts nearly all of them in the first.
+    fine = _pile(d, tolerance, ratio=ratio, run=run)
+    flat, flat_runs = 0, 0
+    if fine.end > ratio * fine.below:
+        _, lengths = runs(d < tolerance)
+        long_runs = lengths[lengths >= run]
+        flat, flat_runs = int(long_runs.sum()), int(long_runs.size)
+    # Whole tolerance steps, so that every bin of a quantised file holds the same number of steps.
+    coarse = _pile(d, max(1.0, round(bin_width * peak / tolerance)) * tolerance, ratio=ratio, run=run)
+    return _Side(sign, peak, flat, flat_runs, max(fine, coarse, key=lambda p: p.excess))
+
+
+def _pct(fraction: float) -> str:
+    return f"{fraction * 100:.3g}%"
+
+
+def _plural(k: int, word: str) -> str:
+    return f"{k} {word}{'s' if k != 1 else ''}"
+
+
+def _peak_words(sides: list[_Side]) -> str:
+    if len(sides) == 1:
+        return f"own {'positive' if sides[0].sign == '+' else 'negative'} peak of {sides[0].peak:.3f} FS"
+    return "own peaks of " + " and ".join(f"{s.sign}{s.peak:.3f}" for s in sides) + " FS"
+
+
+def _pile_words(s: _Side, tolerance: float, width: float) -> str:
+    p = s.pile
+    if p.bin_fs == tolerance:
+        return f"{s.sign}{s.peak:.3f} FS: {p.end} at the peak against {p.below} at the nearest level below"
+    top = f"{width * 100:g}%"
+    return f"{s.sign}{s.peak:.3f} FS: {p.end} in the top {top} against {p.below} in the nearest {top} below"
+
+
+def check_clipping(x, *, clip_level: float = 0.999, min_run: int = 3, max_fraction: float = 1e-4,
+                   peak_tolerance: float = PEAK_TOLERANCE, bin_width: float = 0.01,
+                   pileup_ratio: float = 3.0) -> QCResult:
+    """Clipped samples as a fraction of all samples, counted three ways; the largest count is judged.
+
+    at full scale: samples in runs of >= min_run consecutive samples with |x| >= clip_level (FS).
+    flattened: samples in runs of >= min_run within peak_tolerance (FS) of the recording's own positive or
+    negative peak; a side counts only when that band holds more than pileup_ratio times the samples of the nearest
+    band of the same width below it that holds any (a clean, rounded peak holds at most 1 + √2 times as many).
+    piled up: per side, the samples of the amplitude histogram's end bin beyond pileup_ratio times those of the
+    nearest occupied bin below it, with bins peak_tolerance wide and bin_width times the own peak wide (in whole
+    peak_tolerance steps), whichever shows more; an excess of fewer than min_run samples counts 0.
+    value: the largest of the three fractions (0..1); limit: max_fraction; passed: value <= max_fraction.
+    NaN samples are never at the rail, ±inf always are; neither takes part in the own-peak counts.
     """
     x = as_signal("x", x)
     level = number("clip_level", clip_level, low=0.0, low_open=True)
     run = integer("min_run", min_run, low=1)
     limit = number("max_fraction", max_fraction, low=0.0, high=1.0)
+    tolerance = number("peak_tolerance", peak_tolerance, low=0.0, high=0.01, low_open=True)
+    width = number("bin_width", bin_width, low=0.0, high=0.5, low_open=True)
+    ratio = number("pileup_ratio", pileup_ratio, low=1.0)
     if x.size == 0:
         return _empty("clipping", limit)
-    starts, lengths = runs(np.abs(x) >= level)
+    n = x.size
+    _, lengths = runs(np.abs(x) >= level)
     long_runs = lengths[lengths >= run]
-    fraction = float(long_runs.sum()) / x.size
-    passed = fraction <= limit
-    detail = (f"{fraction * 100:.3g}% of samples in {long_runs.size} run{'s' if long_runs.size != 1 else ''} "
-              f"of {run} or more samples at or above {level:g} FS (limit {limit * 100:.3g}%).")
-    return QCResult("clipping", fraction, limit, passed, detail)
+    full = float(long_runs.sum()) / n
+    counts = {"full": (full, f"{_pct(full)} of samples in {_plural(long_runs.size, 'run')} of {run} or more "
+                             f"samples at or above {level:g} FS")}
+
+    y = np.where(np.isfinite(x), x, 0.0).astype(np.float64, copy=False)
+    sides = [s for s in (_side(y, "+", tolerance=tolerance, run=run, bin_width=width, ratio=ratio),
+                         _side(-y, "-", tolerance=tolerance, run=run, bin_width=width, ratio=ratio)) if s is not None]
+    flat = [s for s in sides if s.flat]
+    if flat:
+        k = sum(s.flat for s in flat)
+        counts["flat"] = (k / n, f"{_plural(k, 'sample')} ({_pct(k / n)}) in "
+                                 f"{_plural(sum(s.flat_runs for s in flat), 'run')} flattened at the recording's "
+                                 f"{_peak_words(flat)}")
+    piled = [s for s in sides if s.pile.excess]
+    if piled:
+        k = sum(s.pile.excess for s in piled)
+        evidence = "; ".join(_pile_words(s, tolerance, width) for s in piled)
+        counts["piled"] = (k / n, f"{_plural(k, 'sample')} ({_pct(k / n)}) piled up at the recording's "
+                                  f"{_peak_words(piled)} beyond {ratio:g} times the count just below ({evidence})")
+    # The largest count is judged and told first; on a tie the full-scale count.
+    order = sorted(counts, key=lambda key: -counts[key][0])
+    value = counts[order[0]][0]
+    also = "".join(f"; also {counts[key][1]}" for key in order[1:] if counts[key][0] > limit)
+    return QCResult("clipping", value, limit, value <= limit, f"{counts[order[0]][1]}{also} (limit {_pct(limit)}).")
 
 
 def check_dropouts(x, *, sample_rate_hz: float, max_dropout_s: float = 0.002) -> QCResult:
@@ -258,7 +369,8 @@ def check_markers(found: int, expected: int, *, source: str, problem: str | None
 
 def run_quality_checks(x, *, sample_rate_hz: float, sample_rate_min_hz: float, sample_rate_max_hz: float,
                        min_duration_s: float, clip_level: float = 0.999, clip_min_run: int = 3,
-                       max_clipped_fraction: float = 1e-4, max_dropout_s: float = 0.002,
+                       max_clipped_fraction: float = 1e-4, clip_peak_tolerance: float = PEAK_TOLERANCE,
+                       clip_bin_width: float = 0.01, clip_pileup_ratio: float = 3.0, max_dropout_s: float = 0.002,
                        max_dc_offset: float = 0.01, min_rms_dbfs: float = -70.0) -> tuple[QCResult, ...]:
     """Run the checks that need only the signal, in the fixed order
     sample_rate, duration, clipping, dropout, dc_offset, silence.
@@ -270,7 +382,8 @@ def run_quality_checks(x, *, sample_rate_hz: float, sample_rate_min_hz: float, s
     return (
         check_sample_rate(sample_rate_hz, min_hz=sample_rate_min_hz, max_hz=sample_rate_max_hz),
         check_duration(x.size, sample_rate_hz=sample_rate_hz, min_duration_s=min_duration_s),
-        check_clipping(x, clip_level=clip_level, min_run=clip_min_run, max_fraction=max_clipped_fraction),
+        check_clipping(x, clip_level=clip_level, min_run=clip_min_run, max_fraction=max_clipped_fraction,
+                       peak_tolerance=clip_peak_tolerance, bin_width=clip_bin_width, pileup_ratio=clip_pileup_ratio),
         check_dropouts(x, sample_rate_hz=sample_rate_hz, max_dropout_s=max_dropout_s),
         check_dc_offset(x, max_dc_offset=max_dc_offset),
         check_silence(x, min_rms_dbfs=min_rms_dbfs),

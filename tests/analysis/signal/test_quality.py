@@ -1,11 +1,15 @@
 """Recording quality checks on constructed signals that just pass and just fail."""
 
 import math
+import re
 
 import numpy as np
 import pytest
+import soundfile as sf
 
 from analysis.errors import ParameterError
+from analysis.io import read_audio
+from analysis.signal._common import runs
 from analysis.signal.quality import (
     CHECK_NAMES,
     LEVEL_FLOOR_DBFS,
@@ -82,6 +86,158 @@ def test_clipping_counts_infinite_samples_and_survives_nan():
     result = check_clipping(x, min_run=3)
     assert result.value == pytest.approx(5 / 100)
     assert not result.passed
+
+
+# Clipping below full scale, at the recording's own peaks. A sine x = A·sin(θ) with θ uniform over a period spends
+# a fraction (1/π)·acos(c/A) of its samples at or above c (0 <= c <= A): the arcsine distribution (standard result,
+# written from memory; the full-scale test above uses the same law).
+
+def _sine(amplitude, *, n=int(FS), f_hz=997.0, phase=0.1):
+    return amplitude * np.sin(2 * np.pi * f_hz * np.arange(n) / FS + phase)
+
+
+def _q16(x):
+    """Round to a 16-bit file's steps the way a writer that scales by 32767 does, and read back as /32768."""
+    return np.clip(np.round(np.asarray(x) * 32767.0), -32768, 32767) / 32768.0
+
+
+def test_clipping_at_nine_tenths_of_full_scale_is_found_at_the_own_peaks():
+    x = np.clip(_sine(1.2), -0.9, 0.9)
+    assert np.abs(x).max() < 0.999  # nothing reaches the full-scale level
+    expected = (2 / math.pi) * math.acos(0.9 / 1.2)  # arcsine law, both polarities
+    result = check_clipping(x)
+    assert not result.passed
+    assert result.value == pytest.approx(expected, abs=1e-3)
+    assert "flattened at the recording's own peaks of +0.900 and -0.900 FS" in result.detail
+
+
+def test_one_sided_clipping_names_only_the_clipped_side():
+    x = np.minimum(_sine(1.2), 0.9)  # the positive half clips at 0.9 FS, the negative half swings to -1.2 FS
+    result = check_clipping(x, clip_level=1.5)
+    assert not result.passed
+    assert result.value == pytest.approx((1 / math.pi) * math.acos(0.9 / 1.2), abs=1e-3)
+    assert re.fullmatch(r"\d+ samples \([\d.]+%\) in \d+ runs flattened at the recording's own positive peak of "
+                        r"0\.900 FS; also .* \(limit 0\.01%\)\.", result.detail), result.detail
+    assert "negative" not in result.detail and "-1.200" not in result.detail
+
+
+@pytest.mark.parametrize("fmt", ["FLAC", "WAV"])
+def test_sixteen_bit_file_clipped_just_below_the_full_scale_level(tmp_path, fmt):
+    # A recorder that clips at 0.999 of full scale stores 32734 of 32768: 0.99896 FS, under clip_level 0.999.
+    ints = np.clip(np.round(_sine(1.1) * 32767.0), -32734, 32734).astype(np.int16)
+    path = tmp_path / f"clipped.{fmt.lower()}"
+    sf.write(path, ints, int(FS), format=fmt, subtype="PCM_16")
+    x = read_audio(path).channel(0)
+    assert float(np.abs(x).max()) == 32734 / 32768 < 0.999
+    # Samples that round to 32734 or beyond: 1.1·32767·|sin θ| >= 32733.5, by the arcsine law.
+    expected = (2 / math.pi) * math.acos(32733.5 / (1.1 * 32767.0))
+    result = check_clipping(x, clip_level=0.999)
+    assert not result.passed
+    assert result.value == pytest.approx(expected, abs=1e-3)
+    assert "own peaks of +0.999 and -0.999 FS" in result.detail
+
+
+def _impact(peak=0.95, f_hz=3000.0, decay_s=0.01, start_s=0.5, n=int(FS)):
+    t = np.arange(n) / FS - start_s
+    return np.where(t >= 0, peak * np.sin(2 * np.pi * f_hz * np.maximum(t, 0)) * np.exp(-np.maximum(t, 0) / decay_s),
+                    0.0)
+
+
+def _noise_with_repeated_peak():
+    x = _q16(_noise(int(FS), 0.2, seed=21))
+    top = int(np.argmax(x))
+    x[(top + 20000) % x.size] = x[top]  # the peak value occurs twice, far apart
+    return x
+
+
+def _noise_burst():
+    x = _noise(int(FS), 0.001, seed=24)
+    x[20000:24800] = _noise(4800, 0.25, seed=23)
+    return _q16(x)
+
+
+def _slow_sine_16_bit():
+    x = _q16(_sine(0.9, n=2 * int(FS), f_hz=20.0))
+    _, lengths = runs(x == x.max())
+    # Its crests hold runs of 6 equal samples, over the limit in all: a rounded top that only looks flat.
+    assert lengths[lengths >= 3].sum() / x.size > 1e-4
+    return x
+
+
+CLEAN_LOUD = {
+    "sine 997 Hz at 0.99 FS": lambda: _sine(0.99),
+    "sine 997 Hz at 0.95 FS in 16 bits": lambda: _q16(_sine(0.95)),
+    "sine 1 kHz: 48 samples a period, every value repeated each period": lambda: _q16(_sine(0.9, f_hz=1000.0,
+                                                                                            phase=0.0)),
+    "sine 440 Hz: 11 periods in 1200 samples": lambda: _q16(_sine(0.9, n=60000, f_hz=440.0)),
+    "sine 20 Hz at 0.9 FS in 16 bits": _slow_sine_16_bit,
+    "Gaussian noise, sd 0.2 FS": lambda: _noise(2 * int(FS), 0.2, seed=22),
+    "noise burst, sd 0.25 FS for 0.1 s": _noise_burst,
+    "one loud impact, 0.95 FS": lambda: _q16(_impact()),
+    "16-bit noise whose peak value occurs twice": _noise_with_repeated_peak,
+}
+
+
+@pytest.mark.parametrize("name", list(CLEAN_LOUD))
+def test_clean_loud_recordings_pass(name):
+    x = CLEAN_LOUD[name]()
+    assert np.abs(x).max() > 0.5  # loud: the own-peak counts look at every one of them
+    result = check_clipping(x)
+    assert result.passed, result.detail
+    assert result.value <= 1e-4
+
+
+def test_a_clean_sine_piles_up_by_the_arcsine_law_when_the_ratio_is_set_too_low():
+    # Amplitude 0.78125 = 25600/32768, so that a bin of 1% of the peak is a whole 256 steps of 2^-15.
+    x = _sine(0.78125)
+    a98, a99 = math.acos(0.98), math.acos(0.99)
+    # Per the arcsine law the top 1% holds (2/π)·acos(0.99) of the samples and the next 1% (2/π)·(acos(0.98) -
+    # acos(0.99)): 2.41 times fewer, under the default ratio of 3 ...
+    assert a99 / (a98 - a99) == pytest.approx(1 + math.sqrt(2), abs=0.01)
+    assert check_clipping(x).value == 0.0
+    # ... but over a ratio of 2, by (2/π)·(acos(0.99) - 2·(acos(0.98) - acos(0.99))).
+    result = check_clipping(x, pileup_ratio=2.0)
+    assert not result.passed
+    assert result.value == pytest.approx((2 / math.pi) * (3 * a99 - 2 * a98), abs=5e-4)
+    assert "piled up at the recording's own peaks of +0.781 and -0.781 FS beyond 2 times" in result.detail
+    # The profile's keywords reach the check: a 2% bin gives (2/π)·(acos(0.98) - 2·(acos(0.96) - acos(0.98))).
+    results = run_quality_checks(x, sample_rate_hz=FS, sample_rate_min_hz=44100, sample_rate_max_hz=96000,
+                                 min_duration_s=0.5, clip_pileup_ratio=2.0, clip_bin_width=0.02)
+    assert results[2].value == pytest.approx((2 / math.pi) * (3 * a98 - 2 * math.acos(0.96)), abs=5e-4)
+
+
+def test_clipping_blurred_by_noise_is_found_by_the_histogram_and_by_a_wider_tolerance():
+    x = np.clip(_sine(1.2), -0.9, 0.9) + np.random.default_rng(25).uniform(-2e-4, 2e-4, int(FS))
+    result = check_clipping(x)
+    assert not result.passed and "piled up" in result.detail and "flattened" not in result.detail
+    # Arcsine law: all samples in the top 1% (>= 0.891 FS), less 3 times those of the next 1% down.
+    a1, a2 = math.acos(0.891 / 1.2), math.acos(0.882 / 1.2)
+    assert result.value == pytest.approx((2 / math.pi) * (a1 - 3 * (a2 - a1)), abs=2e-3)
+    results = run_quality_checks(x, sample_rate_hz=FS, sample_rate_min_hz=44100, sample_rate_max_hz=96000,
+                                 min_duration_s=0.5, clip_peak_tolerance=1e-3)
+    assert "flattened at the recording's own peaks" in results[2].detail
+
+
+def test_clipping_in_a_recording_with_silence():
+    x = np.zeros(int(FS))
+    burst = slice(20000, 24800)
+    x[burst] = _sine(0.8, n=4800)
+    assert check_clipping(x).passed and check_clipping(x).value == 0.0
+    x[burst] = np.clip(_sine(0.8, n=4800), -0.5, 0.5)
+    result = check_clipping(x)
+    assert not result.passed
+    # 0.1 s of the 1 s recording, of which the arcsine share clips
+    assert result.value == pytest.approx(0.1 * (2 / math.pi) * math.acos(0.5 / 0.8), abs=5e-4)
+    assert "own peaks of +0.500 and -0.500 FS" in result.detail
+    silent = check_clipping(np.zeros(int(FS)))
+    assert silent.passed and silent.value == 0.0
+
+
+def test_clipping_at_full_scale_names_every_count_that_fired():
+    result = check_clipping(_clipped_sine(1.5))
+    assert result.detail.startswith("53.")  # the full-scale count: 1 - (2/π)·asin(0.999/1.5) = 53.6%
+    assert "at or above 0.999 FS" in result.detail and "; also " in result.detail
+    assert "flattened at the recording's own peaks of +1.000 and -1.000 FS" in result.detail
 
 
 # ---------------------------------------------------------------- dropout
@@ -259,6 +415,12 @@ def test_parameter_errors_name_the_parameter_and_value():
         check_clipping(np.zeros(10), min_run=0)
     with pytest.raises(ParameterError, match=r"max_fraction must be a finite number >= 0 and <= 1; got 2"):
         check_clipping(np.zeros(10), max_fraction=2)
+    with pytest.raises(ParameterError, match=r"peak_tolerance must be a finite number > 0 and <= 0.01; got 0"):
+        check_clipping(np.zeros(10), peak_tolerance=0)
+    with pytest.raises(ParameterError, match=r"bin_width must be a finite number > 0 and <= 0.5; got 0.6"):
+        check_clipping(np.zeros(10), bin_width=0.6)
+    with pytest.raises(ParameterError, match=r"pileup_ratio must be a finite number >= 1; got 0.5"):
+        check_clipping(np.zeros(10), pileup_ratio=0.5)
     with pytest.raises(ParameterError, match=r"sample_rate_hz must be a finite number > 0; got -1"):
         check_dropouts(np.zeros(10), sample_rate_hz=-1)
     with pytest.raises(ParameterError, match=r"x must be a 1-D array of samples; got an array of shape \(2, 5\)"):
