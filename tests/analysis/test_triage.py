@@ -95,7 +95,8 @@ def units_table(seed, *, lot_shift=None, rig_shift=None, unit_shift=None, size=1
             for k in (1, 2):
                 unit = f"{lot}-{rig}-{k}"
                 m = rng.normal(0, 0.1) + rng.normal(0, 0.4 / 4)
-                if lot == lot_shift or (rig_shift and rig == rig_shift[0] and lot in rig_shift[1]) or unit == unit_shift:
+                on_rig = bool(rig_shift) and rig == rig_shift[0] and lot in rig_shift[1]
+                if lot == lot_shift or on_rig or unit == unit_shift:
                     m += size
                 rows.append(dict(event="ev", statistic="event_spe_ratio", lot=lot, rig=rig, site="S", unit=unit,
                                  n=16, mean=m, first=t, last=t + pd.Timedelta(hours=1)))
