@@ -132,6 +132,8 @@ def band_layout(spec: BandSpec):
     """The band layout a profile's band spec describes."""
     if spec.kind == "third_octave":
         return _bands.third_octave_bands(fmin_hz=spec.fmin_hz, fmax_hz=spec.fmax_hz)
+    if spec.kind == "fractional_octave":
+        return _bands.fractional_octave_bands(fraction=spec.fraction, fmin_hz=spec.fmin_hz, fmax_hz=spec.fmax_hz)
     return _bands.linear_bands(fmin_hz=spec.fmin_hz, fmax_hz=spec.fmax_hz, n_bands=spec.n_bands)
 
 

@@ -42,13 +42,15 @@ SCHEMA_VERSION = 1
 
 @dataclass(frozen=True)
 class BandSpec:
-    """Band layout: ``third_octave`` (IEC 61260-1 base-10) between fmin and fmax, or ``n_bands`` linear bands."""
+    """Band layout: ``third_octave`` (IEC 61260-1 base-10) between fmin and fmax, ``fractional_octave`` (1/b
+    octave, b = ``fraction``: 6, 12 or 24), or ``n_bands`` linear bands."""
 
     kind: str
     fmin_hz: float
     fmax_hz: float
     n_bands: int | None = None
     weighting: str = "none"
+    fraction: int | None = None
 
 
 @dataclass(frozen=True)
@@ -199,14 +201,14 @@ def _load_file(path: Path) -> DeviceProfile:
 _TOP_KEYS = {"profile", "audio", "bands", "quality", "events"}
 _PROFILE_KEYS = {"name", "schema", "version", "description"}
 _AUDIO_KEYS = {"sample_rate_min_hz", "sample_rate_max_hz", "min_duration_s", "channels"}
-_BAND_KEYS = {"kind", "fmin_hz", "fmax_hz", "n_bands", "weighting"}
+_BAND_KEYS = {"kind", "fmin_hz", "fmax_hz", "n_bands", "weighting", "fraction"}
 _EVENT_KEYS = {
     "name", "find", "marker", "window_s", "search_s", "after", "length_s", "slice_window_s", "slice_hop_s", "bands",
     "detector",
 }
 _DETECTORS = DETECTORS  # the event finder's own list
 _WEIGHTINGS = ("none", "A")
-_BAND_KINDS = ("third_octave", "linear")
+_BAND_KINDS = ("third_octave", "fractional_octave", "linear")
 _FINDS = ("marker", "onset")
 
 
@@ -300,8 +302,16 @@ def _bands(c: _Checker, table: dict, prefix: str, default: BandSpec | None) -> B
         n_bands = c.integer(table, "n_bands", prefix + "n_bands", d.n_bands if d and d.n_bands else None, minimum=1)
     elif "n_bands" in table:
         c.fail(prefix + "n_bands", "only applies to kind = 'linear'")
+    fraction = None
+    if kind == "fractional_octave":
+        fraction = c.integer(table, "fraction", prefix + "fraction",
+                             d.fraction if d and d.kind == "fractional_octave" and d.fraction else None, minimum=1)
+        if fraction not in (6, 12, 24):
+            c.fail(prefix + "fraction", f"must be 6, 12 or 24 (1/b octave), got {fraction}")
+    elif "fraction" in table:
+        c.fail(prefix + "fraction", "only applies to kind = 'fractional_octave'")
     weighting = c.text(table, "weighting", prefix + "weighting", d.weighting if d else "none", choices=_WEIGHTINGS)
-    return BandSpec(kind=kind, fmin_hz=fmin, fmax_hz=fmax, n_bands=n_bands, weighting=weighting)
+    return BandSpec(kind=kind, fmin_hz=fmin, fmax_hz=fmax, n_bands=n_bands, weighting=weighting, fraction=fraction)
 
 
 def parse_profile(data: dict[str, Any], *, source, sha256: str = "") -> DeviceProfile:

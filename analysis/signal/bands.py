@@ -11,7 +11,7 @@ import numpy as np
 
 from analysis.errors import ParameterError
 
-__all__ = ["BandLayout", "third_octave_bands", "linear_bands", "band_matrix"]
+__all__ = ["BandLayout", "third_octave_bands", "fractional_octave_bands", "FRACTIONS", "linear_bands", "band_matrix"]
 
 # IEC 61260-1:2014, 5.2: octave frequency ratio for the base-10 system.
 _G = 10.0 ** (3.0 / 10.0)
@@ -21,16 +21,18 @@ _R10_MANTISSAS = np.array([100, 125, 160, 200, 250, 315, 400, 500, 630, 800])
 # A band is included when its exact mid-band frequency is within 0.1 band index (about 2.3 %) of the range: users
 # type nominal values (200 Hz) for bands whose exact mid-band frequency is slightly off (199.53 Hz).
 _INDEX_TOLERANCE = 0.1
-_KINDS = ("third_octave", "linear")
+_KINDS = ("third_octave", "fractional_octave", "linear")
+#: The 1/b-octave bandwidth designators offered beside one-third octave (b = 3).
+FRACTIONS = (6, 12, 24)
 
 
 @dataclass(frozen=True, eq=False)
 class BandLayout:
     """A set of frequency bands.
 
-    kind: "third_octave" or "linear". centres_hz, lower_hz, upper_hz: exact mid-band and edge frequencies in Hz,
-    float64 arrays of shape (n_bands,). nominal_hz: the labels users see (ISO 266 R10 values for one-third-octave
-    bands, the exact centres for linear bands). Arrays are read-only.
+    kind: "third_octave", "fractional_octave" or "linear". centres_hz, lower_hz, upper_hz: exact mid-band and
+    edge frequencies in Hz, float64 arrays of shape (n_bands,). nominal_hz: the labels users see (ISO 266 R10
+    values for one-third-octave bands, the exact centres for the others). Arrays are read-only.
     """
 
     kind: str
@@ -108,6 +110,37 @@ def third_octave_bands(*, fmin_hz: float, fmax_hz: float) -> BandLayout:
         upper_hz=centres * _G ** (1.0 / 6.0),
         nominal_hz=_r10_nominal(x),
     )
+
+
+def fractional_octave_bands(*, fraction: int, fmin_hz: float, fmax_hz: float) -> BandLayout:
+    """1/b-octave bands (b = ``fraction``: 6, 12 or 24) whose exact mid-band frequency lies in [fmin_hz, fmax_hz].
+
+    IEC 61260-1:2014 base-10, G = 10^(3/10), reference 1000 Hz: for odd b, fm = 1000·G^(x/b); for even b,
+    fm = 1000·G^((2x+1)/(2b)) (1000 Hz is then a band edge); edges fm·G^(-1/(2b)) and fm·G^(+1/(2b)). There are no
+    preferred nominal values for these bands: the labels are the exact mid-band frequencies to 3 significant
+    figures.
+    """
+    if isinstance(fraction, bool) or fraction not in FRACTIONS:
+        raise ParameterError(f"fraction must be one of {', '.join(map(str, FRACTIONS))} (1/b octave); got {fraction!r}")
+    fmin, fmax = _check_range(fmin_hz, fmax_hz)
+    b = int(fraction)
+    lg = np.log10(_G)
+
+    def index(f):  # the real-valued band index of frequency f
+        e = np.log10(f / _REFERENCE_HZ) / lg * b
+        return e if b % 2 else (e - 0.5)
+
+    x_lo = int(np.ceil(index(fmin) - _INDEX_TOLERANCE))
+    x_hi = int(np.floor(index(fmax) + _INDEX_TOLERANCE))
+    if x_hi < x_lo:
+        raise ParameterError(f"no 1/{b}-octave band has its mid-band frequency in fmin_hz..fmax_hz = "
+                             f"{fmin:g}..{fmax:g} Hz; widen the range")
+    x = np.arange(x_lo, x_hi + 1)
+    centres = _REFERENCE_HZ * _G ** ((x / b) if b % 2 else ((2 * x + 1) / (2 * b)))
+    half = _G ** (1.0 / (2 * b))
+    nominal = np.array([float(f"{c:.3g}") for c in centres])
+    return BandLayout(kind="fractional_octave", centres_hz=centres, lower_hz=centres / half,
+                      upper_hz=centres * half, nominal_hz=nominal)
 
 
 def linear_bands(*, fmin_hz: float, fmax_hz: float, n_bands: int) -> BandLayout:

@@ -51,7 +51,7 @@ def test_unknown_profile_name_lists_the_folders(tmp_path):
         (lambda d: d["events"][0].update(slice_window_s=0.5), r"slice_window_s'.*longer than the event's length_s"),
         (lambda d: d["bands"].update(weighting="B"), r"key 'bands\.weighting': must be one of 'none', 'A', got 'B'"),
         (lambda d: d["bands"].update(fmax_hz=100.0), r"key 'bands\.fmax_hz': must be above fmin_hz"),
-        (lambda d: d["bands"].update(kind="octave"), r"key 'bands\.kind': must be one of 'third_octave', 'linear'"),
+        (lambda d: d["bands"].update(kind="octave"), r"key 'bands\.kind': must be one of 'third_octave', 'fractional_octave', 'linear'"),
         (lambda d: d["events"][1].update(after="nothing"),
          r"key 'events\.dose_release\.after': must name an earlier event"),
         (lambda d: d["events"][1].update(marker=1), r"two events use the same marker number"),
@@ -87,6 +87,39 @@ def test_linear_bands_need_a_count():
         parse_profile(data, source="x")
     data["bands"]["n_bands"] = 24
     assert parse_profile(data, source="x").bands.n_bands == 24
+
+
+def test_fractional_octave_bands_need_a_fraction_of_6_12_or_24():
+    data = demo_data()
+    data["events"][1]["bands"] = {"kind": "fractional_octave", "fmin_hz": 400.0}
+    with pytest.raises(ProfileError, match=r"key 'events\.dose_release\.bands\.fraction': is missing"):
+        parse_profile(data, source="x")
+    data["events"][1]["bands"]["fraction"] = 5
+    with pytest.raises(ProfileError, match=r"fraction.*must be 6, 12 or 24.*got 5"):
+        parse_profile(data, source="x")
+    data["events"][1]["bands"]["fraction"] = 12
+    spec = parse_profile(data, source="x").event("dose_release").bands
+    assert (spec.kind, spec.fraction, spec.fmin_hz, spec.fmax_hz) == ("fractional_octave", 12, 400.0, 16000.0)
+    data["bands"]["fraction"] = 12  # on a third-octave layout
+    with pytest.raises(ProfileError, match=r"key 'bands\.fraction': only applies to kind = 'fractional_octave'"):
+        parse_profile(data, source="x")
+
+
+def test_a_twelfth_octave_event_is_analysed_in_its_bands(tmp_path):
+    from analysis.demo import generate
+    from analysis.pipeline import analyse_file
+    from analysis.signal.bands import fractional_octave_bands
+
+    data = demo_data()
+    data["events"][1]["bands"] = {"kind": "fractional_octave", "fraction": 12, "fmin_hz": 400.0}
+    prof = parse_profile(data, source="x")
+    generate(tmp_path, scenario="small", jobs=1)
+    rec = next(tmp_path.rglob("*.flac"))
+    res = analyse_file(rec, profile=prof)
+    got = res.features["dose_release"].band_centres_hz
+    want = fractional_octave_bands(fraction=12, fmin_hz=400.0, fmax_hz=16000.0).centres_hz
+    assert got.shape == want.shape and (got == want).all()
+    assert res.features["dose_release"].levels_db.shape[1] == want.size
 
 
 def test_per_event_band_override_inherits_the_rest():

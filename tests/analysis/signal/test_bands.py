@@ -148,3 +148,42 @@ def test_band_matrix_rejects_bad_input():
         band_matrix(np.arange(3.0), 1.0, layout, weighting_db=np.zeros(2))
     with pytest.raises(ParameterError, match="layout must be a BandLayout"):
         band_matrix(np.arange(3.0), 1.0, "third_octave")
+
+
+# ------------------------------------------------------------------------------------- 1/b-octave bands
+from analysis.signal.bands import fractional_octave_bands  # noqa: E402
+
+
+@pytest.mark.parametrize("b", [6, 12, 24])
+def test_fractional_octave_mid_bands_and_edges_follow_iec_61260_1(b):
+    # IEC 61260-1:2014, 5.4-5.6 (base-10, G = 10^(3/10), fr = 1000 Hz), as remembered: odd b: fm = fr·G^(x/b);
+    # even b: fm = fr·G^((2x+1)/(2b)); edges f1 = fm·G^(-1/(2b)), f2 = fm·G^(1/(2b)). Computed here independently.
+    g = 10 ** 0.3
+    lay = fractional_octave_bands(fraction=b, fmin_hz=200.0, fmax_hz=8000.0)
+    x = np.round(np.log(lay.centres_hz / 1000.0) / np.log(g) * 2 * b - 1) / 2  # even b: (2x+1)/(2b)
+    expected = 1000.0 * g ** ((2 * x + 1) / (2 * b))
+    np.testing.assert_allclose(lay.centres_hz, expected, rtol=1e-12)
+    np.testing.assert_allclose(lay.lower_hz, expected * g ** (-1 / (2 * b)), rtol=1e-12)
+    np.testing.assert_allclose(lay.upper_hz, expected * g ** (1 / (2 * b)), rtol=1e-12)
+    np.testing.assert_allclose(lay.upper_hz[:-1], lay.lower_hz[1:], rtol=1e-12)  # adjacent, no gaps
+    np.testing.assert_allclose(lay.upper_hz / lay.lower_hz, g ** (1 / b))  # one 1/b octave wide (base 10)
+    assert np.isclose(lay.upper_hz, 1000.0).any()  # even b: 1000 Hz is a band edge, not a mid-band
+    assert lay.centres_hz[0] >= 200.0 * 0.97 and lay.centres_hz[-1] <= 8000.0 * 1.03
+
+
+def test_twelfth_octave_values_by_hand():
+    # b = 12, x = 0 and x = -1: 1000·G^(1/24) = 1000·10^(0.0125) = 1029.20 Hz and 1000·G^(-1/24) = 971.63 Hz
+    # (hand calculation from the formula above); the first one's edges 1000 Hz and 1000·10^(0.025) = 1059.25 Hz.
+    lay = fractional_octave_bands(fraction=12, fmin_hz=900.0, fmax_hz=1100.0)
+    assert 1029.20 == pytest.approx(lay.centres_hz[np.argmin(np.abs(lay.centres_hz - 1029.2))], abs=0.01)
+    assert 971.63 == pytest.approx(lay.centres_hz[np.argmin(np.abs(lay.centres_hz - 971.6))], abs=0.01)
+    k = int(np.argmin(np.abs(lay.centres_hz - 1029.2)))
+    assert lay.lower_hz[k] == pytest.approx(1000.0) and lay.upper_hz[k] == pytest.approx(1059.25, abs=0.01)
+    assert lay.kind == "fractional_octave" and lay.nominal_hz[k] == 1030.0
+
+
+def test_fractional_octave_refuses_other_fractions():
+    with pytest.raises(ParameterError, match="fraction must be one of 6, 12, 24"):
+        fractional_octave_bands(fraction=5, fmin_hz=100.0, fmax_hz=1000.0)
+    with pytest.raises(ParameterError, match="no 1/24-octave band"):
+        fractional_octave_bands(fraction=24, fmin_hz=1001.0, fmax_hz=1002.0)
