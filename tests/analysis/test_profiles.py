@@ -3,12 +3,14 @@
 from __future__ import annotations
 
 import hashlib
+import inspect
 import tomllib
 
 import pytest
 
 from analysis.errors import ProfileError
 from analysis.profiles import find_profile, is_profile_name, load_profile, parse_profile, shipped_profiles_dir
+from analysis.signal.quality import check_clipping
 
 DEMO = shipped_profiles_dir() / "demo-dpi.toml"
 
@@ -61,6 +63,16 @@ def test_unknown_profile_name_lists_the_folders(tmp_path):
          r"key 'audio\.sample_rate_min_hz': must be a number, got 'fast'"),
         (lambda d: d["profile"].update(schema=9), r"key 'profile\.schema': is 9, newer than this Harken understands"),
         (lambda d: d["quality"].update(clip_level=2.0), r"key 'quality\.clip_level'.*must be <= 1"),
+        (lambda d: d["quality"].update(clip_peak_tolerance=0.5),
+         r"key 'quality\.clip_peak_tolerance': is in full-scale units and must be <= 0\.01 .*got 0\.5"),
+        (lambda d: d["quality"].update(clip_peak_tolerance=0),
+         r"key 'quality\.clip_peak_tolerance': must be > 0, got 0"),
+        (lambda d: d["quality"].update(clip_bin_width=0.8),
+         r"key 'quality\.clip_bin_width': is a fraction of the recording's own peak and must be <= 0\.5, got 0\.8"),
+        (lambda d: d["quality"].update(clip_pileup_ratio=0.5),
+         r"key 'quality\.clip_pileup_ratio': must be >= 1\.0, got 0\.5"),
+        (lambda d: d["quality"].update(clip_pileup_ratio="high"),
+         r"key 'quality\.clip_pileup_ratio': must be a number, got 'high'"),
         (lambda d: d["audio"]["channels"].update(marker=0), r"two roles share one channel"),
         (lambda d: d["events"][1].update(bands={"fmax_hz": 60000.0}),
          r"key 'events\.dose_release\.bands\.fmax_hz': 60000 Hz is above the Nyquist frequency"),
@@ -72,6 +84,23 @@ def test_invalid_profiles_name_the_key_and_value(edit, match):
     with pytest.raises(ProfileError, match=match) as info:
         parse_profile(data, source="site.toml")
     assert str(info.value).startswith("site.toml: ")
+
+
+def test_own_peak_clipping_keys_are_read_and_default_to_the_checks_defaults():
+    q = load_profile("demo-dpi").quality
+    # the shipped profile writes out the defaults: one 16-bit step, 1% bins, a ratio of 3
+    assert (q.clip_peak_tolerance, q.clip_bin_width, q.clip_pileup_ratio) == (2.0 ** -15, 0.01, 3.0)
+    defaults = inspect.signature(check_clipping).parameters
+    data = demo_data()
+    for key in ("clip_peak_tolerance", "clip_bin_width", "clip_pileup_ratio"):
+        del data["quality"][key]
+    q = parse_profile(data, source="x").quality
+    assert q.clip_peak_tolerance == defaults["peak_tolerance"].default
+    assert q.clip_bin_width == defaults["bin_width"].default
+    assert q.clip_pileup_ratio == defaults["pileup_ratio"].default
+    data["quality"].update(clip_peak_tolerance=1e-4, clip_bin_width=0.02, clip_pileup_ratio=4)
+    q = parse_profile(data, source="x").quality
+    assert (q.clip_peak_tolerance, q.clip_bin_width, q.clip_pileup_ratio) == (1e-4, 0.02, 4.0)
 
 
 def test_profile_file_with_unknown_key_names_the_file(tmp_path):
