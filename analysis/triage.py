@@ -1,6 +1,8 @@
 """Every suggested-cause rule (recording / rig / lot / unit), pure: tables of evidence in, causes out.
 
-The rules, shared by the dashboard's flags, the demo's lot-by-lot summary and anything else that names a cause:
+``decide`` (the second part of this module) makes the stored decisions at every level. The first part is the
+simpler rule for a flagged actuation that has no stored decision yet (a store not refreshed since its upgrade);
+the Today view falls back to it:
 - a quality-check failure (the recording clipped, dropped out, lost a marker ...) -> the recording;
 - a lot that signals on at least two rigs and on at least half of the rigs it ran on -> the lot;
 - a rig that signals in at least two lots (not already explained by their lot) -> the rig;
@@ -18,9 +20,8 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
-__all__ = ["CAUSES", "NEXT_STEP", "CellCause", "lot_rigs_signalling", "rig_lots_signalling", "cell_causes",
-           "suggest_cause", "actuation_state", "LEVELS", "CHART_STATISTICS", "Decision", "decide", "cell_table",
-           "evidence_words", "rig_backgrounds"]
+__all__ = ["CAUSES", "NEXT_STEP", "lot_rigs_signalling", "rig_lots_signalling", "suggest_cause", "actuation_state",
+           "LEVELS", "CHART_STATISTICS", "Decision", "decide", "cell_table", "evidence_words", "rig_backgrounds"]
 
 CAUSES = ("recording", "rig", "lot", "unit")
 
@@ -49,39 +50,6 @@ def rig_lots_signalling(cells: pd.DataFrame, rig: str) -> list[str] | None:
     on_rig = cells[cells["rig"] == rig]
     lots = list(dict.fromkeys(on_rig.loc[on_rig["signal"].astype(bool), "lot"]))
     return lots if len(lots) >= 2 else None
-
-
-@dataclass(frozen=True)
-class CellCause:
-    """What a set of signalling (lot, rig) cells suggests: cause "lot" (lot set, rigs where it signals), "rig"
-    (rig set, lots where it signals) or "unit" (one cell neither explains: look at its units)."""
-
-    cause: str
-    lot: str | None
-    rig: str | None
-    cells: tuple[tuple[str, str], ...]  # (lot, rig) of every cell this cause explains
-
-
-def cell_causes(cells: pd.DataFrame) -> list[CellCause]:
-    """The causes suggested by the cells of new lots (rows: lot, rig, signal, in time order): lots first, then
-    rigs among the cells no lot explains, then each remaining signalling cell on its own."""
-    out: list[CellCause] = []
-    explained: set[tuple[str, str]] = set()
-    for lot in dict.fromkeys(cells["lot"]):
-        hit = lot_rigs_signalling(cells, lot)
-        if hit:
-            out.append(CellCause("lot", lot, None, tuple((lot, r) for r in hit)))
-            explained |= {(lot, r) for r in hit}
-    for rig in dict.fromkeys(cells["rig"]):
-        rest = cells[(cells["rig"] == rig) & ~cells["lot"].map(lambda lot, r=rig, seen=explained: (lot, r) in seen)]
-        hit = rig_lots_signalling(rest, rig)
-        if hit:
-            out.append(CellCause("rig", None, rig, tuple((lot, rig) for lot in hit)))
-            explained |= {(lot, rig) for lot in hit}
-    for r in cells[cells["signal"].astype(bool)].itertuples():
-        if (r.lot, r.rig) not in explained:
-            out.append(CellCause("unit", r.lot, r.rig, ((r.lot, r.rig),)))
-    return out
 
 
 def _signals(evidence: pd.DataFrame, min_fraction: float) -> pd.DataFrame:

@@ -2,7 +2,7 @@
 
 import pandas as pd
 
-from analysis.triage import actuation_state, cell_causes, lot_rigs_signalling, rig_lots_signalling, suggest_cause
+from analysis.triage import actuation_state, lot_rigs_signalling, rig_lots_signalling, suggest_cause
 
 
 def cells(rows):
@@ -59,18 +59,6 @@ def test_states():
     assert actuation_state(passed_qc=True, n_model_flags=2, n_qc_flags=0) == "flagged"
     assert actuation_state(passed_qc=True, n_model_flags=0, n_qc_flags=0) == "analysed"
 
-
-def test_cell_causes_explain_lots_first_then_rigs_then_single_cells():
-    # L2 signals on 3 of 3 rigs: the lot. R1 signals in L1 and L3 (L2 is the lot's): the rig. L4 on R3 alone.
-    c = pd.DataFrame([(lot, rig, sig) for lot, rig, sig in [
-        ("L1", "R1", True), ("L1", "R2", False), ("L1", "R3", False),
-        ("L2", "R1", True), ("L2", "R2", True), ("L2", "R3", True),
-        ("L3", "R1", True), ("L3", "R2", False), ("L3", "R3", False),
-        ("L4", "R1", False), ("L4", "R2", False), ("L4", "R3", True)]], columns=["lot", "rig", "signal"])
-    got = [(c.cause, c.lot, c.rig, c.cells) for c in cell_causes(c)]
-    assert got == [("lot", "L2", None, (("L2", "R1"), ("L2", "R2"), ("L2", "R3"))),
-                   ("rig", None, "R1", (("L1", "R1"), ("L3", "R1"))),
-                   ("unit", "L4", "R3", (("L4", "R3"),))]
 
 
 # ---------------------------------------------------------------------------------------------- decide()
