@@ -1,7 +1,11 @@
+import hashlib
+import io
+import json
 import math
 
 import numpy as np
 import pytest
+from scipy import stats
 from sklearn.decomposition import PCA
 
 from analysis.errors import ModelError, ParameterError
@@ -13,6 +17,7 @@ from analysis.monitor import (
     t2_limit_new,
     t2_limit_reference,
 )
+from analysis.monitor.model import _gpd_fit_heavy, _oneway_anova, _Tail
 
 
 def simulate(rng, n_lots, per_lot, *, n_slices=20, n_bands=8, lot_sd=0.2, slice_pattern=True):
@@ -194,6 +199,115 @@ def test_actuation_false_alarm_rate_in_control():
     assert np.mean((r.t2 > r.t2_limit).any(axis=1) | (r.spe > r.spe_limit).any(axis=1)) > 5 * alpha
 
 
+def test_oneway_anova_reproduces_the_textbook_random_effects_example():
+    # Montgomery, Design and Analysis of Experiments, the random-effects example of ch. 3 (fabric strength from 4
+    # looms chosen at random, 4 determinations each); from memory: MS_Treatments = 29.73, MS_E = 1.90 and
+    # σ̂_τ² = (29.73 - 1.90)/4 = 6.96.
+    y = np.array([[98, 97, 99, 96], [91, 90, 93, 92], [96, 95, 97, 95], [95, 96, 99, 98]], dtype=float)
+    looms = np.repeat(np.arange(4), 4)
+    ms_b, ms_w, n0, g, w2 = _oneway_anova(y.ravel(), looms)
+    assert ms_b == pytest.approx(29.73, abs=0.005) and ms_w == pytest.approx(1.90, abs=0.005)
+    assert n0 == 4 and g == 4 and w2 == pytest.approx(4 * 16 / 16**2)
+    assert (ms_b - ms_w) / n0 == pytest.approx(6.96, abs=0.005)
+    # Unbalanced: n0 = (N - Σn_i²/N)/(a - 1) (Montgomery, same section; Searle et al. 1992 §3.6), the mean
+    # squares written out here group by group.
+    keep = np.ones(16, bool)
+    keep[[1, 2, 7]] = False
+    z, grp = y.ravel()[keep], looms[keep]
+    n_i = np.array([np.sum(grp == i) for i in range(4)], dtype=float)
+    m_i = np.array([z[grp == i].mean() for i in range(4)])
+    want_b = sum(n * (m - z.mean()) ** 2 for n, m in zip(n_i, m_i)) / 3
+    want_w = sum(np.sum((z[grp == i] - m_i[i]) ** 2) for i in range(4)) / (z.size - 4)
+    ms_b, ms_w, n0, _, _ = _oneway_anova(z, grp)
+    assert (ms_b, ms_w) == (pytest.approx(want_b), pytest.approx(want_w))
+    assert n0 == pytest.approx((13 - np.sum(n_i**2) / 13) / 3)
+
+
+def test_model_keeps_the_lot_components_of_its_held_out_normal_scores():
+    x, lots = simulate(np.random.default_rng(31), 5, 30, lot_sd=0.5)
+    m = ReferenceModel().fit(x, lots=lots)
+    held = (m.calibration_t2_ratio_, m.calibration_spe_ratio_, m.calibration_distance_,
+            m.calibration_event_spe_ratio_)
+    for j, v in enumerate(held):
+        # van der Waerden scores (scipy ranks) and the balanced one-way ANOVA estimators (Montgomery ch. 3)
+        z = stats.norm.ppf(stats.rankdata(v) / (v.size + 1))
+        groups = [z[lots == lot] for lot in np.unique(lots)]
+        ms_w = np.mean([np.var(gz, ddof=1) for gz in groups])
+        ms_b = 30 * np.var([gz.mean() for gz in groups], ddof=1)
+        assert m.calibration_within_variance_[j] == pytest.approx(ms_w, rel=1e-9)
+        assert m.calibration_lot_variance_[j] == pytest.approx(max((ms_b - ms_w) / 30, 0.0), rel=1e-9, abs=1e-12)
+    # A 0.5 dB lot effect in every band is 4.5 noise SDs of the event's mean spectrum (0.5/√20): it must show.
+    assert m.calibration_lot_variance_[3] > 0.2
+    without = ReferenceModel().fit(x)  # folds by actuation: no lots to tell apart, nothing widened
+    assert np.all(without.calibration_lot_variance_ == 0)
+
+
+def test_false_alarm_rate_on_new_lots_with_a_lot_random_effect():
+    # Each band of a lot is shifted by N(0, 0.8²) dB, drawn anew for every lot; the reference has 6 lots, the new
+    # actuations come from 50 further lots. The rate meant is the average over reference sets, so 60 independent
+    # sets are pooled. Tolerance: 3 standard errors, the binomial one of a proportion from the calibration and the
+    # new actuations combined with that of the mean of the 60 replicate rates (the actuations of one lot share
+    # its effect, so one set's rate varies more than binomially).
+    alpha, reps, fars, pooled = 0.01, 60, [], []
+    for seed in range(reps):
+        rng = np.random.default_rng(5000 + seed)
+        x, lots = simulate(rng, 6, 20, n_slices=10, n_bands=6, lot_sd=0.8)
+        new, _ = simulate(rng, 50, 20, n_slices=10, n_bands=6, lot_sd=0.8)
+        m = ReferenceModel(actuation_alpha=alpha).fit(x, lots=lots)
+        r = m.score(new)
+        fars.append(r.flagged.mean())
+        # The same held-out values with the pooled (1 - α') quantiles, no lot component: what the lot component
+        # corrects.
+        held = (m.calibration_t2_ratio_, m.calibration_spe_ratio_, m.calibration_distance_,
+                m.calibration_event_spe_ratio_)
+        values = (r.t2_ratio, r.spe_ratio, r.trajectory_distance, r.event_spe_ratio)
+        pooled.append(np.mean(np.any([v > _Tail(h).ppf(1 - m.actuation_alpha_each_) for v, h in zip(values, held)],
+                                     axis=0)))
+    fars, pooled = np.asarray(fars), np.asarray(pooled)
+    se_binomial = math.sqrt(alpha * (1 - alpha) * (1 / (reps * 120) + 1 / (reps * 1000)))
+    tol = 3 * math.hypot(se_binomial, fars.std(ddof=1) / math.sqrt(reps))
+    assert abs(fars.mean() - alpha) < tol, (fars.mean(), tol)
+    gain = pooled - fars
+    assert gain.mean() > 3 * gain.std(ddof=1) / math.sqrt(reps), (pooled.mean(), fars.mean())
+    assert pooled.mean() - alpha > tol  # without the lot component the rate is off by more than the tolerance
+
+
+@pytest.mark.parametrize("xi", [0.0, 0.4])
+def test_tail_follows_a_heavy_tail_and_keeps_the_exponential_otherwise(xi):
+    # Draws from a generalised Pareto law (scipy.stats.genpareto): above any threshold it stays generalised
+    # Pareto of the same shape (threshold stability), so the true exceedance probability of each fitted
+    # threshold is known. q = 0.14 % is about the per-statistic rate of the actuation decision at 0.5 %.
+    q, rates, shapes = 0.0014, [], []
+    rng = np.random.default_rng(77)
+    for _ in range(100):
+        v = stats.genpareto.rvs(xi, size=640, random_state=rng)
+        t = _Tail(v)
+        rates.append(stats.genpareto.sf(t.ppf(1 - q), xi))
+        shapes.append(t.shape)
+    shapes = np.asarray(shapes)
+    if xi == 0.0:
+        assert np.mean(shapes > 0) <= 0.12  # the test of ξ = 0 at 5 %: about 5 of 100 go heavy
+        assert 0.75 < np.mean(rates) / q < 1.3
+    else:
+        assert np.mean(shapes > 0) >= 0.85 and abs(np.median(shapes) - xi) < 0.1
+        # an exponential tail here gives about 3.9 times q (its thresholds fall short of a heavy tail)
+        assert 0.75 < np.mean(rates) / q < 1.8
+
+
+def test_heavy_tail_fit_matches_scipy_maximum_likelihood():
+    # scipy.stats.genpareto.fit (reference library) maximises the same likelihood with loc = 0.
+    rng = np.random.default_rng(8)
+    x = stats.genpareto.rvs(0.35, scale=2.0, size=200, random_state=rng)
+    xi, beta, deviance = _gpd_fit_heavy(x)
+    c, _, scale = stats.genpareto.fit(x, floc=0.0)
+    assert xi == pytest.approx(c, abs=2e-4) and beta == pytest.approx(scale, rel=2e-4)
+    lr = 2 * (stats.genpareto.logpdf(x, c, 0, scale).sum() - stats.expon.logpdf(x, 0, x.mean()).sum())
+    assert deviance == pytest.approx(lr, abs=1e-3)
+    # A bounded tail (ξ < 0) is not followed: the fit stays on the exponential, with no gain.
+    xi, beta, deviance = _gpd_fit_heavy(stats.uniform.rvs(size=200, random_state=rng))
+    assert xi < 1e-4 and deviance < 1e-6
+
+
 def test_known_shift_is_detected(reference):
     x, _, m = reference
     rng = np.random.default_rng(20)
@@ -266,6 +380,29 @@ def test_documents_round_trip_without_files(reference):
     assert again.metadata_ == {"event": "e"}
     with pytest.raises(ModelError, match=r"row 7: arrays do not match the checksum"):
         ReferenceModel.from_documents(text, blob[:-1] + b"x", source="row 7")
+
+
+def test_older_model_documents_without_the_lot_fields_still_load(reference):
+    # A model stored before the lot components and tail shapes were kept: its npz lacks them, its thresholds
+    # (scalars in the JSON) are the ones it scores with.
+    x, _, m = reference
+    text, blob = m.to_documents()
+    with np.load(io.BytesIO(blob), allow_pickle=False) as npz:
+        arrays = {k: npz[k] for k in npz.files}
+    for k in ("calibration_lot_variance", "calibration_within_variance", "calibration_tail_shape"):
+        del arrays[k]
+    buf = io.BytesIO()
+    np.savez(buf, **arrays)
+    old_blob = buf.getvalue()
+    doc = json.loads(text)
+    doc["arrays_sha256"] = hashlib.sha256(old_blob).hexdigest()
+    old = ReferenceModel.from_documents(json.dumps(doc), old_blob, source="stored model 3")
+    assert old.calibration_lot_variance_ is None and old.calibration_tail_shape_ is None
+    a, b = old.score(x[:20]), m.score(x[:20])
+    np.testing.assert_array_equal(a.flagged, b.flagged)
+    assert a.distance_threshold == b.distance_threshold and a.event_spe_threshold == b.event_spe_threshold
+    again = ReferenceModel.from_documents(*m.to_documents())
+    np.testing.assert_array_equal(again.calibration_tail_shape_, m.calibration_tail_shape_)
 
 
 @pytest.mark.parametrize("scaling, centring", [("unit", "slice"), ("pareto", "slice"), ("unit", "global"),
