@@ -1,0 +1,129 @@
+"""Resonance features of one event: sub-bin peak frequencies, half-power bandwidths and decay rates.
+
+A resonance that moves by a few per cent stays inside one third-octave band; its peak frequency does not. Each
+range (f_lo, f_hi) in Hz names where one resonance of the device lives; in it the strongest peak of the event's
+mean power spectrum (periodic-Hann slices on the event's slice grid, zero-padded by ``zero_pad``) is located by
+fitting a parabola through the log power of the peak bin and its two neighbours (the Gaussian, or log-quadratic,
+interpolation: exact for a Gaussian window, whose transform's log is a parabola). The decay rate is the amplitude
+decay 1/τ of x(t) ∝ exp(-t/τ) from the least-squares slope of the peak's level over the slices, from the loudest
+slice to where it has fallen ``decay_range_db``; a sustained resonance reads about 0.
+
+Not yet used by the pipeline or the reference model: this is the pure core the model's resonance block will use.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import fft as _fft
+from scipy import signal as _signal
+
+from analysis.errors import ParameterError
+
+__all__ = ["Resonance", "interpolate_peak", "resonances"]
+
+_FLOOR = 1e-30
+
+
+@dataclass(frozen=True)
+class Resonance:
+    """One resonance: frequency_hz of the peak, level_db of the mean spectrum there (dB re full scale², per
+    zero-padded bin), bandwidth_hz between the half-power points (the window's own width included), decay_per_s
+    the amplitude decay rate 1/τ in s⁻¹ (NaN when fewer than 3 slices fit)."""
+
+    low_hz: float
+    high_hz: float
+    frequency_hz: float
+    level_db: float
+    bandwidth_hz: float
+    decay_per_s: float
+
+
+def interpolate_peak(log_power, k: int) -> tuple[float, float]:
+    """(offset, value) of the parabola through log_power[k-1], [k], [k+1]: offset in bins from k (|offset| <=
+    0.5 at a local maximum), value the parabola's top."""
+    a, b, c = (float(v) for v in log_power[k - 1:k + 2])
+    den = a - 2.0 * b + c
+    if den >= 0.0:  # flat or not a maximum: the bin itself
+        return 0.0, b
+    delta = 0.5 * (a - c) / den
+    return delta, b - 0.25 * (a - c) * delta
+
+
+def _half_power_width(db, k, delta, top_db, bin_hz):
+    """Width in Hz where the spectrum db (dB) around bin k falls 3.01 dB below top_db, by linear interpolation."""
+    half = top_db - 10.0 * math.log10(2.0)
+    edges = []
+    for step in (-1, 1):
+        i = k
+        while 0 < i < db.size - 1 and db[i + step] > half:
+            i += step
+        j = i + step
+        if not 0 <= j < db.size:
+            return float("nan")
+        frac = (db[i] - half) / (db[i] - db[j]) if db[i] != db[j] else 0.0
+        edges.append(i + step * frac)
+    return (edges[1] - edges[0]) * bin_hz
+
+
+def resonances(x, *, sample_rate_hz: float, onset_s: float, length_s: float, slice_window_s: float,
+               slice_hop_s: float, ranges_hz, zero_pad: int = 8, decay_range_db: float = 20.0,
+               window: str = "hann") -> tuple[Resonance, ...]:
+    """Resonance features of the event at onset_s (s) lasting length_s (s) in signal x (full-scale units).
+
+    ranges_hz: sequence of (low, high) in Hz, each below Nyquist; one Resonance per range, in order."""
+    fs = float(sample_rate_hz)
+    sig = np.asarray(x, dtype=np.float64)
+    if sig.ndim != 1:
+        raise ParameterError(f"x must be a 1-D signal; got shape {sig.shape}")
+    if not (isinstance(zero_pad, int) and 1 <= zero_pad <= 64):
+        raise ParameterError(f"zero_pad must be an integer from 1 to 64; got {zero_pad!r}")
+    n_win = int(round(slice_window_s * fs))
+    hop = int(round(slice_hop_s * fs))
+    if n_win < 8 or hop < 1:
+        raise ParameterError(f"slice_window_s={slice_window_s!r} and slice_hop_s={slice_hop_s!r} give {n_win} and "
+                             f"{hop} samples at {fs:g} Hz; need at least 8 and 1")
+    bands = [(float(lo), float(hi)) for lo, hi in ranges_hz]
+    for lo, hi in bands:
+        if not (0.0 < lo < hi < fs / 2):
+            raise ParameterError(f"a resonance range must be 0 < low < high < Nyquist ({fs / 2:g} Hz); "
+                                 f"got ({lo:g}, {hi:g}) Hz")
+    start = int(round(onset_s * fs))
+    n_slices = max(1, 1 + (int(round(length_s * fs)) - n_win) // hop)
+    frames = np.zeros((n_slices, n_win))
+    for i in range(n_slices):  # zero-padded where the event runs past the recording
+        a = start + i * hop
+        seg = sig[max(a, 0):max(a + n_win, 0)]
+        frames[i, max(-a, 0):max(-a, 0) + seg.size] = seg
+    w = _signal.get_window(window, n_win, fftbins=True)
+    n_fft = zero_pad * n_win
+    power = np.abs(_fft.rfft(frames * w, n=n_fft, axis=-1)) ** 2 / (np.sum(w) ** 2)
+    bin_hz = fs / n_fft
+    mean_db = 10.0 * np.log10(power.mean(axis=0) + _FLOOR)
+    times = np.arange(n_slices) * hop / fs
+    out = []
+    for lo, hi in bands:
+        k_lo, k_hi = max(1, int(math.ceil(lo / bin_hz))), min(mean_db.size - 2, int(math.floor(hi / bin_hz)))
+        if k_hi < k_lo:
+            raise ParameterError(f"resonance range ({lo:g}, {hi:g}) Hz holds no bin of {bin_hz:g} Hz")
+        k = k_lo + int(np.argmax(mean_db[k_lo:k_hi + 1]))
+        delta, top = interpolate_peak(mean_db, k)
+        width = _half_power_width(mean_db, k, delta, top, bin_hz)
+        out.append(Resonance(lo, hi, (k + delta) * bin_hz, top, width, _decay_rate(power[:, k], times,
+                                                                                    decay_range_db)))
+    return tuple(out)
+
+
+def _decay_rate(track, times, range_db):
+    """Amplitude decay rate 1/τ (s⁻¹) from the level track (power per slice) after its loudest slice."""
+    db = 10.0 * np.log10(track + _FLOOR)
+    i0 = int(np.argmax(db))
+    stop = i0 + 1
+    while stop < db.size and db[stop] > db[i0] - range_db:
+        stop += 1
+    if stop - i0 < 3:
+        return float("nan")
+    slope = np.polyfit(times[i0:stop], db[i0:stop], 1)[0]  # dB per s of power = 20·log10 of amplitude
+    return float(-slope * math.log(10.0) / 20.0)
