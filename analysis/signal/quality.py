@@ -102,17 +102,25 @@ class _Side:
     pile: _Pile
 
 
-def _pile(d: np.ndarray, bin_fs: float, *, ratio: float, run: int) -> _Pile:
+def _pile(d: np.ndarray, bin_fs: float, *, ratio: float, run: int, reach: float = math.inf) -> _Pile | None:
     """The end bin (d < bin_fs, d = distance below the peak) against the nearest bin below it that holds samples.
 
     The nearest occupied bin rather than the adjacent one: a tone whose period is a whole number of samples takes
-    only a few values, each repeated once a period, with empty bins between them.
+    only a few values, each repeated once a period, with empty bins between them. d may hold only the samples
+    with d < reach (the top of the histogram); None when the nearest occupied bin may lie beyond it.
     """
     end = int(np.count_nonzero(d < bin_fs))
-    steps = np.floor(d[d >= bin_fs] / bin_fs)
-    below = int(np.count_nonzero(steps == steps.min())) if steps.size else 0
+    rest = d[d >= bin_fs]
+    step = math.floor(float(rest.min()) / bin_fs) if rest.size else None
+    if math.isfinite(reach) and (step is None or (step + 2) * bin_fs > reach):
+        return None
+    below = int(np.count_nonzero(np.floor(rest / bin_fs) == step)) if step is not None else 0
     excess = end - ratio * below
     return _Pile(int(math.floor(excess)) if excess >= run else 0, end, below, bin_fs)
+
+
+# Distances below the peak, in coarse bins, within which the histogram's top is read first (then all samples).
+_REACHES = (4.0, 32.0, math.inf)
 
 
 def _side(y: np.ndarray, sign: str, *, tolerance: float, run: int, bin_width: float, ratio: float) -> _Side | None:
@@ -120,16 +128,23 @@ def _side(y: np.ndarray, sign: str, *, tolerance: float, run: int, bin_width: fl
     if peak <= 0.0:
         return None
     d = peak - y
-    # A rounded (locally quadratic) top puts at most 1 + √2 times as many samples within a band of the peak as in
-    # the band of the same width below it; a flat top puts nearly all of them in the first.
-    fine = _pile(d, tolerance, ratio=ratio, run=run)
+    # Whole tolerance steps, so that every bin of a quantised file holds the same number of steps.
+    coarse_fs = max(1.0, round(bin_width * peak / tolerance)) * tolerance
+    # Both counts need only the top of the histogram, usually a small share of the samples: read it within a few
+    # coarse bins of the peak, further down only when a bin below is not found there.
+    for reach in _REACHES:
+        top = d[d < reach * coarse_fs] if math.isfinite(reach) else d
+        # A rounded (locally quadratic) top puts at most 1 + √2 times as many samples within a band of the peak as
+        # in the band of the same width below it; a flat top puts nearly all of them in the first.
+        fine = _pile(top, tolerance, ratio=ratio, run=run, reach=reach * coarse_fs)
+        coarse = _pile(top, coarse_fs, ratio=ratio, run=run, reach=reach * coarse_fs)
+        if fine is not None and coarse is not None:
+            break
     flat, flat_runs = 0, 0
     if fine.end > ratio * fine.below:
         _, lengths = runs(d < tolerance)
         long_runs = lengths[lengths >= run]
         flat, flat_runs = int(long_runs.sum()), int(long_runs.size)
-    # Whole tolerance steps, so that every bin of a quantised file holds the same number of steps.
-    coarse = _pile(d, max(1.0, round(bin_width * peak / tolerance)) * tolerance, ratio=ratio, run=run)
     return _Side(sign, peak, flat, flat_runs, max(fine, coarse, key=lambda p: p.excess))
 
 

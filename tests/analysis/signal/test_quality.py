@@ -427,3 +427,26 @@ def test_parameter_errors_name_the_parameter_and_value():
         check_silence(np.zeros((2, 5)))
     with pytest.raises(ParameterError, match=r"max_hz must be a finite number >= 44100; got 100"):
         check_sample_rate(48000, min_hz=44100, max_hz=100)
+
+
+@pytest.mark.parametrize("gap_bins", [1, 3, 10, 50, 200])
+def test_own_peak_counts_match_a_plain_histogram_however_far_the_bin_below(gap_bins):
+    # The counts read the histogram's top first and go further down only when needed: they must equal the plain
+    # count over all samples (numpy's floor of each distance below the peak; the end bin against the nearest
+    # occupied bin below it), with the samples below the pile 1 to 200 coarse bins (1 % of the peak each) down.
+    from analysis.signal.quality import PEAK_TOLERANCE, _side
+
+    rng = np.random.default_rng(gap_bins)
+    peak, ratio = 0.6, 3.0
+    y = np.concatenate([np.full(40, peak), peak * (1 - 0.01 * gap_bins) - rng.uniform(0, 0.004, 30),
+                        rng.uniform(-0.1, 0.1, 5000)])
+    rng.shuffle(y)
+    side = _side(y, "+", tolerance=PEAK_TOLERANCE, run=3, bin_width=0.01, ratio=ratio)
+    d = peak - y
+    plain = {}
+    for bin_fs in (PEAK_TOLERANCE, round(0.01 * peak / PEAK_TOLERANCE) * PEAK_TOLERANCE):
+        steps = np.floor(d[d >= bin_fs] / bin_fs)
+        end, below = int(np.count_nonzero(d < bin_fs)), int(np.count_nonzero(steps == steps.min()))
+        plain[bin_fs] = (end, below, math.floor(end - ratio * below))
+    assert (side.pile.end, side.pile.below, side.pile.excess) == plain[side.pile.bin_fs]
+    assert side.pile.excess == max(v[2] for v in plain.values())
