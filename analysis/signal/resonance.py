@@ -17,21 +17,20 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import fft as _fft
-from scipy import signal as _signal
 
 from analysis.errors import ParameterError
+from analysis.signal._common import mean_square_db
+from analysis.signal.spectra import rfft_freqs, slice_grid, stft_power
 
 __all__ = ["Resonance", "interpolate_peak", "resonances"]
-
-_FLOOR = 1e-30
 
 
 @dataclass(frozen=True)
 class Resonance:
-    """One resonance: frequency_hz of the peak, level_db of the mean spectrum there (dB re full scale², per
-    zero-padded bin), bandwidth_hz between the half-power points (the window's own width included), decay_per_s
-    the amplitude decay rate 1/τ in s⁻¹ (NaN when fewer than 3 slices fit)."""
+    """One resonance: frequency_hz of the peak, level_db the interpolated top of the mean power spectrum
+    (dB re full scale, one-sided: a sine of amplitude A reads 20·log10(A) - 3.01), bandwidth_hz between the
+    half-power points (the window's own width included), decay_per_s the amplitude decay rate 1/τ in s⁻¹ (NaN
+    when fewer than 3 slices fit)."""
 
     low_hz: float
     high_hz: float
@@ -52,7 +51,7 @@ def interpolate_peak(log_power, k: int) -> tuple[float, float]:
     return delta, b - 0.25 * (a - c) * delta
 
 
-def _half_power_width(db, k, delta, top_db, bin_hz):
+def _half_power_width(db, k, top_db, bin_hz):
     """Width in Hz where the spectrum db (dB) around bin k falls 3.01 dB below top_db, by linear interpolation."""
     half = top_db - 10.0 * math.log10(2.0)
     edges = []
@@ -74,35 +73,24 @@ def resonances(x, *, sample_rate_hz: float, onset_s: float, length_s: float, sli
     """Resonance features of the event at onset_s (s) lasting length_s (s) in signal x (full-scale units).
 
     ranges_hz: sequence of (low, high) in Hz, each below Nyquist; one Resonance per range, in order."""
-    fs = float(sample_rate_hz)
-    sig = np.asarray(x, dtype=np.float64)
-    if sig.ndim != 1:
-        raise ParameterError(f"x must be a 1-D signal; got shape {sig.shape}")
-    if not (isinstance(zero_pad, int) and 1 <= zero_pad <= 64):
+    sig = np.asarray(x)
+    if not (isinstance(zero_pad, int) and not isinstance(zero_pad, bool) and 1 <= zero_pad <= 64):
         raise ParameterError(f"zero_pad must be an integer from 1 to 64; got {zero_pad!r}")
-    n_win = int(round(slice_window_s * fs))
-    hop = int(round(slice_hop_s * fs))
-    if n_win < 8 or hop < 1:
-        raise ParameterError(f"slice_window_s={slice_window_s!r} and slice_hop_s={slice_hop_s!r} give {n_win} and "
-                             f"{hop} samples at {fs:g} Hz; need at least 8 and 1")
+    grid = slice_grid(onset_s=onset_s, length_s=length_s, slice_window_s=slice_window_s, slice_hop_s=slice_hop_s,
+                      sample_rate_hz=sample_rate_hz, n_samples=sig.size if sig.ndim == 1 else 0)
+    fs = grid.sample_rate_hz
     bands = [(float(lo), float(hi)) for lo, hi in ranges_hz]
     for lo, hi in bands:
         if not (0.0 < lo < hi < fs / 2):
             raise ParameterError(f"a resonance range must be 0 < low < high < Nyquist ({fs / 2:g} Hz); "
                                  f"got ({lo:g}, {hi:g}) Hz")
-    start = int(round(onset_s * fs))
-    n_slices = max(1, 1 + (int(round(length_s * fs)) - n_win) // hop)
-    frames = np.zeros((n_slices, n_win))
-    for i in range(n_slices):  # zero-padded where the event runs past the recording
-        a = start + i * hop
-        seg = sig[max(a, 0):max(a + n_win, 0)]
-        frames[i, max(-a, 0):max(-a, 0) + seg.size] = seg
-    w = _signal.get_window(window, n_win, fftbins=True)
-    n_fft = zero_pad * n_win
-    power = np.abs(_fft.rfft(frames * w, n=n_fft, axis=-1)) ** 2 / (np.sum(w) ** 2)
-    bin_hz = fs / n_fft
-    mean_db = 10.0 * np.log10(power.mean(axis=0) + _FLOOR)
-    times = np.arange(n_slices) * hop / fs
+    n_fft = zero_pad * grid.n_window
+    # (n_slices, n_bins) on the zero-padded grid; slices past the recording read zeros, as the band features do
+    power = stft_power(sig, sample_rate_hz=fs, starts=grid.starts, n_window=grid.n_window, window=window,
+                       scaling="spectrum", n_fft=n_fft)
+    bin_hz = float(rfft_freqs(n_fft, fs)[1])
+    mean_db = mean_square_db(power.mean(axis=0))
+    times = grid.times_s
     out = []
     for lo, hi in bands:
         k_lo, k_hi = max(1, int(math.ceil(lo / bin_hz))), min(mean_db.size - 2, int(math.floor(hi / bin_hz)))
@@ -110,7 +98,7 @@ def resonances(x, *, sample_rate_hz: float, onset_s: float, length_s: float, sli
             raise ParameterError(f"resonance range ({lo:g}, {hi:g}) Hz holds no bin of {bin_hz:g} Hz")
         k = k_lo + int(np.argmax(mean_db[k_lo:k_hi + 1]))
         delta, top = interpolate_peak(mean_db, k)
-        width = _half_power_width(mean_db, k, delta, top, bin_hz)
+        width = _half_power_width(mean_db, k, top, bin_hz)
         out.append(Resonance(lo, hi, (k + delta) * bin_hz, top, width, _decay_rate(power[:, k], times,
                                                                                     decay_range_db)))
     return tuple(out)
@@ -118,7 +106,7 @@ def resonances(x, *, sample_rate_hz: float, onset_s: float, length_s: float, sli
 
 def _decay_rate(track, times, range_db):
     """Amplitude decay rate 1/τ (s⁻¹) from the level track (power per slice) after its loudest slice."""
-    db = 10.0 * np.log10(track + _FLOOR)
+    db = mean_square_db(track)
     i0 = int(np.argmax(db))
     stop = i0 + 1
     while stop < db.size and db[stop] > db[i0] - range_db:

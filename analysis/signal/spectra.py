@@ -135,13 +135,16 @@ def rfft_freqs(n_window: int, sample_rate_hz: float) -> np.ndarray:
 
 
 def stft_power(x, *, sample_rate_hz: float, starts, n_window: int, window="hann", scaling: str = "density",
-               workers: int | None = None) -> np.ndarray:
-    """One-sided short-time power of x, shape starts.shape + (n_window // 2 + 1,).
+               n_fft: int | None = None, workers: int | None = None) -> np.ndarray:
+    """One-sided short-time power of x, shape starts.shape + (n_fft // 2 + 1,).
+
+    n_fft: transform length, >= n_window (default n_window); longer frames are zero-padded, which samples the
+    same spectrum on a finer grid (rfft_freqs(n_fft, ...)).
 
     scaling:
       "density"     2|X_k|²/(fs·S2), units²/Hz (the PSD; matches scipy.signal.welch scaling='density').
       "spectrum"    2|X_k|²/S1², units² (a sine of amplitude A on a bin reads A²/2 in that bin).
-      "mean_square" density × bin width = 2|X_k|²/(N·S2), units²; by Parseval the sum over all bins equals the
+      "mean_square" density × bin width = 2|X_k|²/(n_fft·S2), units²; by Parseval the sum over all bins equals the
                     window-weighted mean square Σ(x·w)²/S2 of the frame, so a band's sum is its mean square.
     DC and Nyquist bins are not doubled (Heinzel et al. 2002). All frames go through one rfft call.
     """
@@ -151,13 +154,19 @@ def stft_power(x, *, sample_rate_hz: float, starts, n_window: int, window="hann"
     if scaling not in SCALINGS:
         raise ParameterError(f"scaling must be one of {SCALINGS}; got {scaling!r}")
     n = int(n_window)
+    if n_fft is None:
+        m = n
+    elif isinstance(n_fft, bool) or not isinstance(n_fft, (int, np.integer)) or n_fft < n:
+        raise ParameterError(f"n_fft must be an integer >= n_window ({n}); got {n_fft!r}")
+    else:
+        m = int(n_fft)
     w = window_values(window, n)
-    spectrum = scipy.fft.rfft(frames(x, starts, n) * w, axis=-1, workers=workers)
+    spectrum = scipy.fft.rfft(frames(x, starts, n) * w, n=m, axis=-1, workers=workers)
     power = spectrum.real**2 + spectrum.imag**2
-    # One-sided: double every bin except DC and (for even n) Nyquist, whose negative-frequency twin is itself.
-    power[..., 1:(n + 1) // 2] *= 2.0
+    # One-sided: double every bin except DC and (for even m) Nyquist, whose negative-frequency twin is itself.
+    power[..., 1:(m + 1) // 2] *= 2.0
     if scaling == "density":
         return power / (fs * np.sum(w**2))
     if scaling == "spectrum":
         return power / np.sum(w) ** 2
-    return power / (n * np.sum(w**2))
+    return power / (m * np.sum(w**2))

@@ -176,3 +176,21 @@ def test_stft_power_rejects_bad_parameters():
         stft_power(x.reshape(2, 500), sample_rate_hz=FS, starts=[0], n_window=256)
     with pytest.raises(ParameterError, match="n_window must be an integer >= 2; got 1"):
         stft_power(x, sample_rate_hz=FS, starts=[0], n_window=1)
+
+
+def test_zero_padded_frames_match_welch_with_nfft_and_keep_parseval():
+    # scipy.signal.welch with nfft > nperseg zero-pads each segment: the same spectrum on a finer grid.
+    rng = np.random.default_rng(21)
+    x = rng.standard_normal(N)
+    for scaling, welch_scaling in (("spectrum", "spectrum"), ("density", "density")):
+        ours = stft_power(x, sample_rate_hz=FS, starts=[0], n_window=N, n_fft=4 * N, scaling=scaling)[0]
+        f_ref, ref = scipy.signal.welch(x, fs=FS, window="hann", nperseg=N, noverlap=0, nfft=4 * N, detrend=False,
+                                        scaling=welch_scaling)
+        np.testing.assert_allclose(ours, ref, rtol=1e-6, atol=1e-18)
+        np.testing.assert_allclose(rfft_freqs(4 * N, FS), f_ref)
+    # Parseval on the padded grid (Heinzel et al. 2002): the bins still sum to the window-weighted mean square.
+    w = window_values("hann", N)
+    ms = stft_power(x, sample_rate_hz=FS, starts=[0], n_window=N, n_fft=3 * N + 1, scaling="mean_square")[0]
+    assert ms.sum() == pytest.approx(np.sum((x * w) ** 2) / np.sum(w**2), rel=1e-10)
+    with pytest.raises(ParameterError, match=r"n_fft must be an integer >= n_window \(4096\); got 100"):
+        stft_power(x, sample_rate_hz=FS, starts=[0], n_window=N, n_fft=100)
