@@ -21,7 +21,8 @@ import numpy as np
 import pandas as pd
 
 __all__ = ["CAUSES", "NEXT_STEP", "lot_rigs_signalling", "rig_lots_signalling", "suggest_cause", "actuation_state",
-           "LEVELS", "CHART_STATISTICS", "Decision", "decide", "cell_table", "evidence_words", "rig_backgrounds"]
+           "LEVELS", "CHART_STATISTICS", "Decision", "decide", "cell_table", "evidence_words", "subject_words",
+           "rig_backgrounds"]
 
 CAUSES = ("recording", "rig", "lot", "unit")
 
@@ -489,6 +490,11 @@ def _majority(causes) -> str | None:
     if not causes:
         return None
     return max(set(causes), key=causes.count)
+
+
+def subject_words(event) -> str:
+    """What a signal is about: its event, or the rig's background (the fingerprint's signals carry no event)."""
+    return event if isinstance(event, str) and event else "rig background"
 
 
 def evidence_words(d: Decision) -> str:

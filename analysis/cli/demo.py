@@ -15,6 +15,7 @@ import pandas as pd
 
 from ..errors import AnalysisError
 from ..io import read_sidecar
+from ..triage import subject_words
 from ..validation import report_lines, validate
 
 __all__ = ["register", "run", "run_demo", "signal_lines", "carrier_calibration"]
@@ -156,8 +157,7 @@ def signal_lines(signals: pd.DataFrame) -> list[str]:
     lines = ["signals in the store (lots and rigs; suggested cause and evidence):"]
     for r in wide.itertuples(index=False):
         where = f"lot {r.lot}" if r.level == "lot" else f"rig {r.rig}"
-        what = r.event if isinstance(r.event, str) and r.event else "background"
-        lines.append(f"  {where}, {what} -> {r.cause}: {r.evidence}")
+        lines.append(f"  {where}, {subject_words(r.event)} -> {r.cause}: {r.evidence}")
     if not len(wide):
         lines.append("  no lot or rig signals")
     for level in ("cell", "unit"):

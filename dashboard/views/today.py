@@ -10,7 +10,7 @@ from datetime import UTC, datetime
 from dash import Input, Output, dcc, html
 
 from analysis.store import queries
-from analysis.triage import NEXT_STEP, actuation_state, suggest_cause
+from analysis.triage import NEXT_STEP, actuation_state, subject_words, suggest_cause
 
 from ..labels import short
 from ..safety import guarded
@@ -69,11 +69,6 @@ def today_data(store, *, per_rig: int = 10) -> dict:
 _LEVEL_WORDS = {"lot": "Lot", "rig": "Rig", "cell": "Lot on a rig", "unit": "Unit"}
 
 
-def _event_words(event) -> str:
-    """The event a signal is about, or the rig's background for the fingerprint's signals (no event)."""
-    return event if isinstance(event, str) and event else "background before the first event"
-
-
 def _where(r) -> str:
     parts = []
     for key, word in (("lot", "lot"), ("rig", "rig"), ("unit", "unit"), ("site", "site")):
@@ -92,7 +87,7 @@ def render_signals(sig) -> html.Div:
         cause = r["cause"] if r["cause"] in NEXT_STEP else "unit"
         items.append(html.Li(className=f"flag-item signal-item cause-{cause}", children=[
             html.Div([html.Strong(f"{_LEVEL_WORDS.get(r['level'], r['level'])}: "), html.Span(_where(r)),
-                      html.Span(f" · {short(_event_words(r['event']))} · since {r['first']}", className="muted")]),
+                      html.Span(f" · {short(subject_words(r['event']))} · since {r['first']}", className="muted")]),
             html.Div(short(r["evidence"], 400)),
             html.Div([html.Strong(f"Suggested cause: {cause}"),
                       html.Span(f". Next: {NEXT_STEP[cause]}.", className="muted")]),

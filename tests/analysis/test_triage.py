@@ -205,3 +205,11 @@ def test_one_recording_whose_background_departs_points_at_the_recording():
     act = by(d, "actuation")
     assert act[0].cause == "recording" and "background" in evidence_words(act[0])
     assert not [x for x in by(d, "rig") if x.statistic == "background"]  # one recording is not a rig
+
+
+def test_a_signal_without_an_event_is_about_the_rig_background():
+    from analysis.triage import subject_words
+
+    assert subject_words("dose_release") == "dose_release"
+    for none in (None, "", float("nan")):  # an empty event as the store, pandas or a CSV gives it back
+        assert subject_words(none) == "rig background"

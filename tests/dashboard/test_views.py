@@ -296,3 +296,20 @@ def test_an_unreadable_model_degrades_to_a_note(ctx):
     t = trajectories.trajectory_figures(trajectories.trajectories_data(ctx, "demo-dpi", "dose_release",
                                                                        lots_=["L2606"]))
     assert "cannot be read" in t["note"]
+
+
+def test_today_and_the_demo_name_a_background_signal_alike():
+    import pandas as pd
+
+    from analysis.cli.demo import signal_lines
+
+    sig = pd.DataFrame([{"level": "rig", "lot": None, "rig": "R-9", "unit": None, "site": "S", "event": None,
+                         "statistic": "background", "cause": "rig", "evidence": "its background departs",
+                         "first": "2026-01-02", "last": "2026-01-03", "active": True}])
+    import json
+
+    import plotly
+
+    rendered = json.dumps(today.render_signals(sig), cls=plotly.utils.PlotlyJSONEncoder)
+    assert "rig background" in rendered
+    assert any("rig R-9, rig background -> rig" in line for line in signal_lines(sig))
