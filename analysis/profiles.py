@@ -20,8 +20,9 @@ from pathlib import Path
 from typing import Any
 
 from .errors import ProfileError
+from .signal.bands import FRACTIONS
 from .signal.events import DETECTORS
-from .signal.quality import PEAK_TOLERANCE
+from .signal.quality import MAX_BIN_WIDTH, MAX_PEAK_TOLERANCE, PEAK_TOLERANCE
 
 __all__ = [
     "BandSpec",
@@ -306,8 +307,9 @@ def _bands(c: _Checker, table: dict, prefix: str, default: BandSpec | None) -> B
     if kind == "fractional_octave":
         fraction = c.integer(table, "fraction", prefix + "fraction",
                              d.fraction if d and d.kind == "fractional_octave" and d.fraction else None, minimum=1)
-        if fraction not in (6, 12, 24):
-            c.fail(prefix + "fraction", f"must be 6, 12 or 24 (1/b octave), got {fraction}")
+        if fraction not in FRACTIONS:
+            c.fail(prefix + "fraction", f"must be {', '.join(map(str, FRACTIONS[:-1]))} or {FRACTIONS[-1]} "
+                                        f"(1/b octave), got {fraction}")
     elif "fraction" in table:
         c.fail(prefix + "fraction", "only applies to kind = 'fractional_octave'")
     weighting = c.text(table, "weighting", prefix + "weighting", d.weighting if d else "none", choices=_WEIGHTINGS)
@@ -380,13 +382,13 @@ def parse_profile(data: dict[str, Any], *, source, sha256: str = "") -> DevicePr
     )
     if quality.clip_level > 1.0:
         c.fail("quality.clip_level", f"is a fraction of full scale and must be <= 1, got {quality.clip_level:g}")
-    if quality.clip_peak_tolerance > 0.01:
+    if quality.clip_peak_tolerance > MAX_PEAK_TOLERANCE:
         c.fail("quality.clip_peak_tolerance",
-               f"is in full-scale units and must be <= 0.01 (one 16-bit step is 3.05e-05), "
+               f"is in full-scale units and must be <= {MAX_PEAK_TOLERANCE:g} (one 16-bit step is 3.05e-05), "
                f"got {quality.clip_peak_tolerance:g}")
-    if quality.clip_bin_width > 0.5:
-        c.fail("quality.clip_bin_width",
-               f"is a fraction of the recording's own peak and must be <= 0.5, got {quality.clip_bin_width:g}")
+    if quality.clip_bin_width > MAX_BIN_WIDTH:
+        c.fail("quality.clip_bin_width", f"is a fraction of the recording's own peak and must be <= "
+                                         f"{MAX_BIN_WIDTH:g}, got {quality.clip_bin_width:g}")
 
     raw_events = data.get("events")
     if not isinstance(raw_events, list) or not raw_events:

@@ -28,6 +28,8 @@ __all__ = [
     "CHECK_NAMES",
     "LEVEL_FLOOR_DBFS",
     "PEAK_TOLERANCE",
+    "MAX_PEAK_TOLERANCE",
+    "MAX_BIN_WIDTH",
     "check_clipping",
     "check_dropouts",
     "check_dc_offset",
@@ -79,6 +81,9 @@ def _ms(seconds: float) -> str:
 
 #: Within this of a recording's own peak counts as at the peak (full-scale units): one step of a 16-bit file.
 PEAK_TOLERANCE = 2.0 ** -15
+#: Largest allowed peak tolerance (FS) and histogram bin width (fraction of the own peak) of the clipping check.
+MAX_PEAK_TOLERANCE = 0.01
+MAX_BIN_WIDTH = 0.5
 
 
 @dataclass(frozen=True)
@@ -189,8 +194,8 @@ def check_clipping(x, *, clip_level: float = 0.999, min_run: int = 3, max_fracti
     level = number("clip_level", clip_level, low=0.0, low_open=True)
     run = integer("min_run", min_run, low=1)
     limit = number("max_fraction", max_fraction, low=0.0, high=1.0)
-    tolerance = number("peak_tolerance", peak_tolerance, low=0.0, high=0.01, low_open=True)
-    width = number("bin_width", bin_width, low=0.0, high=0.5, low_open=True)
+    tolerance = number("peak_tolerance", peak_tolerance, low=0.0, high=MAX_PEAK_TOLERANCE, low_open=True)
+    width = number("bin_width", bin_width, low=0.0, high=MAX_BIN_WIDTH, low_open=True)
     ratio = number("pileup_ratio", pileup_ratio, low=1.0)
     if x.size == 0:
         return _empty("clipping", limit)

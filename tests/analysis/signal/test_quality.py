@@ -408,25 +408,23 @@ def test_empty_signal_fails_without_crashing():
         assert not result.passed and "no samples" in result.detail
 
 
-def test_parameter_errors_name_the_parameter_and_value():
-    with pytest.raises(ParameterError, match=r"clip_level must be a finite number > 0; got 0"):
-        check_clipping(np.zeros(10), clip_level=0)
-    with pytest.raises(ParameterError, match=r"min_run must be an integer >= 1; got 0"):
-        check_clipping(np.zeros(10), min_run=0)
-    with pytest.raises(ParameterError, match=r"max_fraction must be a finite number >= 0 and <= 1; got 2"):
-        check_clipping(np.zeros(10), max_fraction=2)
-    with pytest.raises(ParameterError, match=r"peak_tolerance must be a finite number > 0 and <= 0.01; got 0"):
-        check_clipping(np.zeros(10), peak_tolerance=0)
-    with pytest.raises(ParameterError, match=r"bin_width must be a finite number > 0 and <= 0.5; got 0.6"):
-        check_clipping(np.zeros(10), bin_width=0.6)
-    with pytest.raises(ParameterError, match=r"pileup_ratio must be a finite number >= 1; got 0.5"):
-        check_clipping(np.zeros(10), pileup_ratio=0.5)
-    with pytest.raises(ParameterError, match=r"sample_rate_hz must be a finite number > 0; got -1"):
-        check_dropouts(np.zeros(10), sample_rate_hz=-1)
-    with pytest.raises(ParameterError, match=r"x must be a 1-D array of samples; got an array of shape \(2, 5\)"):
-        check_silence(np.zeros((2, 5)))
-    with pytest.raises(ParameterError, match=r"max_hz must be a finite number >= 44100; got 100"):
-        check_sample_rate(48000, min_hz=44100, max_hz=100)
+@pytest.mark.parametrize("call, match", [
+    (lambda: check_clipping(np.zeros(10), clip_level=0), r"clip_level must be a finite number > 0; got 0"),
+    (lambda: check_clipping(np.zeros(10), min_run=0), r"min_run must be an integer >= 1; got 0"),
+    (lambda: check_clipping(np.zeros(10), max_fraction=2),
+     r"max_fraction must be a finite number >= 0 and <= 1; got 2"),
+    (lambda: check_clipping(np.zeros(10), peak_tolerance=0),
+     r"peak_tolerance must be a finite number > 0 and <= 0.01; got 0"),
+    (lambda: check_clipping(np.zeros(10), bin_width=0.6),
+     r"bin_width must be a finite number > 0 and <= 0.5; got 0.6"),
+    (lambda: check_clipping(np.zeros(10), pileup_ratio=0.5), r"pileup_ratio must be a finite number >= 1; got 0.5"),
+    (lambda: check_dropouts(np.zeros(10), sample_rate_hz=-1), r"sample_rate_hz must be a finite number > 0; got -1"),
+    (lambda: check_silence(np.zeros((2, 5))), r"x must be a 1-D array of samples; got an array of shape \(2, 5\)"),
+    (lambda: check_sample_rate(48000, min_hz=44100, max_hz=100), r"max_hz must be a finite number >= 44100; got 100"),
+])
+def test_parameter_errors_name_the_parameter_and_value(call, match):
+    with pytest.raises(ParameterError, match=match):
+        call()
 
 
 @pytest.mark.parametrize("gap_bins", [1, 3, 10, 50, 200])
