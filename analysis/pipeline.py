@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -22,6 +22,7 @@ from .signal import bands as _bands
 from .signal import events as _events
 from .signal import features as _features
 from .signal import quality as _quality
+from .signal import resonance as _resonance
 
 __all__ = ["RecordingResult", "analyse_signals", "analyse_file", "band_layout", "markers_for", "json_number",
            "ONSET_LOG_GAMMA"]
@@ -114,6 +115,11 @@ class RecordingResult:
                     "centroid_hz": json_number(f.centroid_hz),
                     "band_energy_db": json_number(f.band_energy_db),
                     "padded_slices": int(f.padded_slices),
+                    "resonances": [
+                        {"low_hz": r.low_hz, "high_hz": r.high_hz, "frequency_hz": json_number(r.frequency_hz),
+                         "level_db": json_number(r.level_db), "bandwidth_hz": json_number(r.bandwidth_hz),
+                         "decay_per_s": json_number(r.decay_per_s)}
+                        for r in f.resonances],
                 }
                 for name, f in self.features.items()
             },
@@ -252,6 +258,11 @@ def analyse_signals(
                 offset_db=offset_db,
                 name=spec.name,
             )
+            if spec.resonances_hz:
+                found_res = _resonance.resonances(
+                    mic, sample_rate_hz=fs, onset_s=ev.onset_s, length_s=spec.length_s,
+                    slice_window_s=spec.slice_window_s, slice_hop_s=spec.slice_hop_s, ranges_hz=spec.resonances_hz)
+                features[spec.name] = replace(features[spec.name], resonances=found_res)
 
     return RecordingResult(
         path=path,

@@ -69,6 +69,7 @@ class EventSpec:
     slice_hop_s: float
     bands: BandSpec
     detector: str = "flux"  # "flux" (spectral flux: strikes, clicks) or "energy" (level rise: swelling sounds)
+    resonances_hz: tuple[tuple[float, float], ...] = ()  # (low, high) Hz ranges, one resonance of the device each
 
     @property
     def n_slices(self) -> int:
@@ -205,7 +206,7 @@ _AUDIO_KEYS = {"sample_rate_min_hz", "sample_rate_max_hz", "min_duration_s", "ch
 _BAND_KEYS = {"kind", "fmin_hz", "fmax_hz", "n_bands", "weighting", "fraction"}
 _EVENT_KEYS = {
     "name", "find", "marker", "window_s", "search_s", "after", "length_s", "slice_window_s", "slice_hop_s", "bands",
-    "detector",
+    "detector", "resonances_hz",
 }
 _DETECTORS = DETECTORS  # the event finder's own list
 _WEIGHTINGS = ("none", "A")
@@ -288,6 +289,33 @@ class _Checker:
         if v[1] <= v[0]:
             self.fail(key, f"stop must be after start, got {v!r}")
         return (float(v[0]), float(v[1]))
+
+
+def _resonance_ranges(c: _Checker, ev: dict, key: str, *, slice_window_s: float, nyquist_hz: float):
+    """The event's resonance ranges: a list of [low, high] in Hz, each below the Nyquist frequency of the lowest
+    accepted sample rate, at least two of the slice's frequency bins (1/slice_window_s) wide, not overlapping."""
+    raw = ev.get("resonances_hz", [])
+    if not isinstance(raw, list):
+        c.fail(key, f"must be a list of [low, high] ranges in Hz, got {raw!r}")
+    out: list[tuple[float, float]] = []
+    bin_hz = 1.0 / slice_window_s
+    for i, r in enumerate(raw):
+        k = f"{key}[{i}]"
+        if (not isinstance(r, list) or len(r) != 2
+                or not all(isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x) for x in r)):
+            c.fail(k, f"must be a pair of numbers [low, high] in Hz, got {r!r}")
+        lo, hi = float(r[0]), float(r[1])
+        if not 0.0 < lo < hi:
+            c.fail(k, f"must have 0 < low < high, got {r!r}")
+        if hi >= nyquist_hz:
+            c.fail(k, f"{hi:g} Hz is not below the Nyquist frequency of sample_rate_min_hz ({nyquist_hz:g} Hz)")
+        if hi - lo < 2.0 * bin_hz:
+            c.fail(k, f"is {hi - lo:g} Hz wide; the event's {slice_window_s:g} s slices resolve {bin_hz:g} Hz, so a "
+                      f"range needs at least {2.0 * bin_hz:g} Hz")
+        if any(lo < b and a < hi for a, b in out):
+            c.fail(k, f"overlaps an earlier range: {[list(x) for x in out]}")
+        out.append((lo, hi))
+    return tuple(out)
 
 
 def _bands(c: _Checker, table: dict, prefix: str, default: BandSpec | None) -> BandSpec:
@@ -434,10 +462,12 @@ def parse_profile(data: dict[str, Any], *, source, sha256: str = "") -> DevicePr
             if ev_bands.fmax_hz > sr_max / 2:
                 c.fail(p + "bands.fmax_hz", f"{ev_bands.fmax_hz:g} Hz is above the Nyquist frequency of "
                                             f"sample_rate_max_hz ({sr_max / 2:g} Hz)")
+        ranges = _resonance_ranges(c, ev, p + "resonances_hz", slice_window_s=win, nyquist_hz=sr_min / 2)
         events.append(
             EventSpec(
                 name=ev_name, find=find, marker=marker, window_s=window, search_s=search, after=after,
                 length_s=length, slice_window_s=win, slice_hop_s=hop, bands=ev_bands, detector=detector,
+                resonances_hz=ranges,
             )
         )
     markers = sorted(e.marker for e in events if e.marker is not None)

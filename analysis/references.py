@@ -18,6 +18,7 @@ from .monitor import ReferenceModel
 from .monitor.levels import group_limits_from_model
 from .profiles import find_profile
 from .scoring import FeatureSet, current_user, fit_event_model
+from .signal.resonance import block_names, block_values
 from .store import Store, StoreError
 from .store.codec import missing_event, scored_events
 from .store.types import ScoredEvent
@@ -28,9 +29,25 @@ __all__ = ["build_reference", "rescore", "score_levels", "score_result", "ModelI
 RESCORE_CHUNK = 500
 
 
-def score_levels(model: ReferenceModel, X: np.ndarray) -> list[ScoredEvent]:
-    """Score actuations X (n, n_slices, n_bands) with ``model``, as stored (float32): one ScoredEvent each."""
-    return scored_events(model.score(np.asarray(X, dtype=np.float32).astype(float)))
+def score_levels(model: ReferenceModel, X: np.ndarray, resonance: np.ndarray | None = None) -> list[ScoredEvent]:
+    """Score actuations X (n, n_slices, n_bands) with ``model``, as stored (float32), and their resonance block
+    (n, p) when the model has one: one ScoredEvent each."""
+    block = resonance if model.has_resonance else None
+    return scored_events(model.score(np.asarray(X, dtype=np.float32).astype(float), resonance=block))
+
+
+def _ranges_problem(model: ReferenceModel, found) -> str | None:
+    """Why an event's resonances cannot be scored by ``model``'s resonance block, or None."""
+    if not model.has_resonance:
+        return None
+    want = [list(r) for r in (getattr(model, "metadata_", None) or {}).get("resonances_hz", ())]
+    have = [[r.low_hz, r.high_hz] for r in found]
+    if not have:
+        return "the model has a resonance block and the event has no resonance features (analysed before its " \
+               "profile named resonance ranges: re-analyse it)"
+    if want and have != want:
+        return f"the model's resonance ranges {want} differ from the event's {have}"
+    return None
 
 
 def score_result(result, models: dict) -> dict:
@@ -41,7 +58,12 @@ def score_result(result, models: dict) -> dict:
         if feats is None or feats.levels_db.shape != (model.n_slices_, model.n_bands_):
             scored[event] = (model_id, missing_event(_missing_reason(result, event, feats, model)))
             continue
-        scored[event] = (model_id, score_levels(model, feats.levels_db[None])[0])
+        problem = _ranges_problem(model, feats.resonances)
+        if problem:
+            scored[event] = (model_id, missing_event(f"event {event!r} not scored: {problem}"))
+            continue
+        scored[event] = (model_id, score_levels(model, feats.levels_db[None],
+                                                block_values(feats.resonances)[None])[0])
     return scored
 
 
@@ -119,8 +141,8 @@ def _feature_set(store, profile, event, lots) -> FeatureSet:
         have = store.lot_names(profile)
         raise StoreError(f"{store.url}: no stored actuations of profile {profile!r} in lot(s) {', '.join(absent)} "
                          f"(lots in the store: {', '.join(have) or 'none'})")
-    rows, paths, lot_of, unit_of, excluded = [], [], [], [], []
-    times = centres = None
+    rows, paths, lot_of, unit_of, excluded, blocks = [], [], [], [], [], []
+    times = centres = ranges = None
     for r in df.itertuples(index=False):
         if not r.passed_qc:
             excluded.append((r.file, "failed quality checks"))
@@ -131,9 +153,14 @@ def _feature_set(store, profile, event, lots) -> FeatureSet:
         if rows and r.levels.shape != rows[0].shape:
             excluded.append((r.file, f"feature shape {r.levels.shape} differs from {rows[0].shape}"))
             continue
+        here = tuple((x.low_hz, x.high_hz) for x in r.resonances)
         if times is None:
-            times, centres = r.slice_times_s, r.band_centres_hz
+            times, centres, ranges = r.slice_times_s, r.band_centres_hz, here
+        elif here != ranges:
+            excluded.append((r.file, f"resonance ranges {list(here)} differ from {list(ranges)}"))
+            continue
         rows.append(r.levels)
+        blocks.append(block_values(r.resonances))
         paths.append(r.file)
         lot_of.append(r.lot)
         unit_of.append(r.unit)
@@ -141,7 +168,9 @@ def _feature_set(store, profile, event, lots) -> FeatureSet:
         raise StoreError(f"{store.url}: no usable actuations of {profile}/{event} in lots {', '.join(lots)} "
                          f"({len(excluded)} left out)")
     return FeatureSet(event=event, X=np.stack(rows).astype(float), paths=tuple(paths), lots=tuple(lot_of),
-                      slice_times_s=times, band_centres_hz=centres, excluded=tuple(excluded)), unit_of
+                      slice_times_s=times, band_centres_hz=centres, excluded=tuple(excluded),
+                      resonance=np.stack(blocks) if ranges else None,
+                      resonance_names=block_names(ranges) if ranges else ()), unit_of
 
 
 def rescore(store, profile: str, *, events: Sequence[str] | None = None, model_id: int | None = None,
@@ -169,7 +198,7 @@ def rescore(store, profile: str, *, events: Sequence[str] | None = None, model_i
             todo = store.unscored(profile, event, mid, limit=chunk)
             if not todo:
                 break
-            items, ok_ids, ok_x = [], [], []
+            items, ok_ids, ok_x, ok_r = [], [], [], []
             for r in todo:
                 if r["levels"] is None:
                     why = r["reason"] or ("no band features" if r["found"] else "not found")
@@ -178,11 +207,14 @@ def rescore(store, profile: str, *, events: Sequence[str] | None = None, model_i
                     items.append((r["actuation_id"], missing_event(
                         f"event {event!r} not scored: the model expects {shape[0]} slices x {shape[1]} bands, "
                         f"the recording has {r['n_slices']} x {r['n_bands']}")))
+                elif (problem := _ranges_problem(model, r["resonances"])) is not None:
+                    items.append((r["actuation_id"], missing_event(f"event {event!r} not scored: {problem}")))
                 else:
                     ok_ids.append(r["actuation_id"])
                     ok_x.append(r["levels"])
+                    ok_r.append(block_values(r["resonances"]))
             if ok_x:
-                items += list(zip(ok_ids, score_levels(model, np.stack(ok_x))))
+                items += list(zip(ok_ids, score_levels(model, np.stack(ok_x), np.stack(ok_r))))
             store.insert_scores(mid, event, items, refresh_profile=profile)
             total += len(items)
     if not total:  # nothing new to score: the signals are still brought up to date (e.g. after an upgrade)

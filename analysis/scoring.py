@@ -23,6 +23,7 @@ from .modelfile import load_model, save_model
 from .monitor import ReferenceModel
 from .pipeline import RecordingResult, analyse_file, json_number
 from .profiles import DeviceProfile, load_profile
+from .signal.resonance import block_names, block_values
 
 __all__ = [
     "FeatureSet",
@@ -34,6 +35,7 @@ __all__ = [
     "load_models",
     "monitor_result",
     "model_metadata_problem",
+    "scoring_block",
 ]
 
 def find_recordings(paths: Iterable[str | Path]) -> list[Path]:
@@ -81,12 +83,15 @@ class FeatureSet:
     slice_times_s: np.ndarray
     band_centres_hz: np.ndarray
     excluded: tuple[tuple[str, str], ...]  # (path, why) of recordings left out
+    resonance: np.ndarray | None = None  # (n, p) resonance block (analysis.signal.resonance.block_values) or None
+    resonance_names: tuple[str, ...] = ()
 
 
 def feature_set(results: Iterable[tuple[str, RecordingResult | None, str | None]], event: str) -> FeatureSet:
     """Stack one event's band features; recordings that failed QC, lack the event or were unreadable are left out."""
-    rows, paths, lots, excluded = [], [], [], []
+    rows, paths, lots, excluded, blocks = [], [], [], [], []
     times = centres = None
+    ranges = None
     for path, res, err in results:
         if res is None:
             excluded.append((path, err or "not analysed"))
@@ -98,12 +103,17 @@ def feature_set(results: Iterable[tuple[str, RecordingResult | None, str | None]
         if feats is None:
             excluded.append((path, f"event {event!r} not found or not analysed"))
             continue
+        here = tuple((r.low_hz, r.high_hz) for r in feats.resonances)
         if times is None:
-            times, centres = feats.slice_times_s, feats.band_centres_hz
+            times, centres, ranges = feats.slice_times_s, feats.band_centres_hz, here
         elif feats.levels_db.shape != rows[0].shape:
             excluded.append((path, f"feature shape {feats.levels_db.shape} differs from {rows[0].shape}"))
             continue
+        elif here != ranges:
+            excluded.append((path, f"resonance ranges {list(here)} differ from {list(ranges)}"))
+            continue
         rows.append(feats.levels_db)
+        blocks.append(block_values(feats.resonances))
         paths.append(path)
         lots.append(res.sidecar.lot if res.sidecar is not None else "")
     if not rows:
@@ -111,6 +121,7 @@ def feature_set(results: Iterable[tuple[str, RecordingResult | None, str | None]
     return FeatureSet(
         event=event, X=np.stack(rows), paths=tuple(paths), lots=tuple(lots), slice_times_s=np.asarray(times),
         band_centres_hz=np.asarray(centres), excluded=tuple(excluded),
+        resonance=np.stack(blocks) if ranges else None, resonance_names=block_names(ranges) if ranges else (),
     )
 
 
@@ -129,6 +140,8 @@ def fit_event_model(
         lots=np.asarray(fs.lots) if len(distinct) >= 3 else None,
         slice_times_s=fs.slice_times_s,
         band_centres_hz=fs.band_centres_hz,
+        resonance=fs.resonance,
+        resonance_names=fs.resonance_names or None,
     )
     spec = profile.event(fs.event)
     meta = {
@@ -147,6 +160,7 @@ def fit_event_model(
         "created_at": datetime.now(UTC).isoformat(timespec="seconds"),
         "created_by": current_user(),
         "actuation_alpha": alpha,
+        "resonances_hz": [list(r) for r in spec.resonances_hz],
     }
     model.metadata_ = meta  # what save() will store; load() restores it
     return model, meta
@@ -232,12 +246,24 @@ def load_models(paths: Iterable[str | Path]) -> dict[str, ReferenceModel]:
     return models
 
 
+def scoring_block(model: ReferenceModel, feats) -> np.ndarray | None:
+    """The (1, p) resonance block to score one event's features with, or None when the model has no block."""
+    if not model.has_resonance:
+        return None
+    return block_values(feats.resonances)[None, :]
+
+
 def model_metadata_problem(model: ReferenceModel, result: RecordingResult, event: str) -> str | None:
     """Why this model cannot score this recording's event, or None."""
     meta = getattr(model, "metadata_", None) or {}
     if meta.get("profile") not in (None, result.profile):
         return f"the model is for profile {meta.get('profile')!r}, the recording uses {result.profile!r}"
     feats = result.features.get(event)
+    if feats is not None and model.has_resonance:
+        have = tuple(tuple(r) for r in meta.get("resonances_hz", ()))
+        here = tuple((r.low_hz, r.high_hz) for r in feats.resonances)
+        if have and here != have:
+            return f"the model's resonance ranges {list(have)} differ from the recording's {list(here)}"
     if feats is not None and feats.levels_db.shape != (model.n_slices_, model.n_bands_):
         return (f"the model expects {model.n_slices_} slices x {model.n_bands_} bands, the recording has "
                 f"{feats.levels_db.shape[0]} x {feats.levels_db.shape[1]}")
@@ -267,7 +293,7 @@ def monitor_result(result: RecordingResult, models: dict[str, ReferenceModel]) -
             entry["reasons"] = [f"event {event!r} not analysed: {why}"] + qc_reasons
             out[event] = entry
             continue
-        m = model.score(feats.levels_db[None, :, :])
+        m = model.score(feats.levels_db[None, :, :], resonance=scoring_block(model, feats))
         entry.update(
             t2_max=json_number(m.t2_max[0]), spe_max=json_number(m.spe_max[0]), slices_outside=int(m.slices_outside[0]),
             trajectory_distance=json_number(m.trajectory_distance[0]),
@@ -277,6 +303,9 @@ def monitor_result(result: RecordingResult, models: dict[str, ReferenceModel]) -
             distance_threshold=json_number(m.distance_threshold),
             event_spe_ratio=json_number(m.event_spe_ratio[0]), event_spe_threshold=json_number(m.event_spe_threshold),
         )
+        if m.resonance_t2 is not None:
+            entry.update(resonance_t2=json_number(m.resonance_t2[0]),
+                         resonance_threshold=json_number(m.resonance_threshold))
         reasons = list(m.reasons(0)) + qc_reasons
         entry["flagged"] = bool(m.flagged[0]) or bool(qc_reasons)
         entry["reasons"] = reasons

@@ -20,9 +20,11 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
+from analysis.monitor.levels import BLOCK_STATISTIC
+
 __all__ = ["CAUSES", "NEXT_STEP", "lot_rigs_signalling", "rig_lots_signalling", "suggest_cause", "actuation_state",
            "LEVELS", "CHART_STATISTICS", "Decision", "decide", "cell_table", "evidence_words", "subject_words",
-           "rig_backgrounds"]
+           "rig_backgrounds", "agreeing_signatures", "SIGNATURE_AGREEMENT"]
 
 CAUSES = ("recording", "rig", "lot", "unit")
 
@@ -99,9 +101,10 @@ def actuation_state(*, passed_qc: bool, n_model_flags: int, n_qc_flags: int) -> 
 # - cell (lot, rig) and lot: the lot-by-lot chart's points, limits and run rules (analysis.monitor.lot_chart),
 #   per rig and pooled over rigs, of the cell means of CHART_STATISTICS;
 # - the causes of signalling cells come from a robust two-way decomposition of the lot x rig table of cell
-#   departures (in chart sigmas; Tukey's median polish): a lot whose cells depart together on several rigs ->
-#   the lot; a rig whose cells depart beyond what their lots explain in two or more lots, or whose own sequence
-#   of lots breaks a run rule -> the rig; a cell neither explains -> its units when the departure is
+#   departures (in chart sigmas; Tukey's median polish): a lot whose cells depart together on several rigs, with
+#   the same signature (which bands carry the departure, compared by cosine similarity) -> the lot; a rig whose
+#   cells depart beyond what their lots explain in two or more lots, or whose own sequence of lots breaks a run
+#   rule -> the rig; a cell neither explains -> its units when the departure is
 #   concentrated in units that signal on their own, else the rig during that lot;
 # - a unit signal takes the cause of its lot or rig when that explains it, else the unit;
 # - a flagged actuation: a quality-check failure -> the recording; else the cause of its unit when the unit
@@ -196,7 +199,32 @@ def _polish(z: pd.DataFrame):
 SEQUENCE_RULES = ("we2", "we3", "we4") + tuple(f"nelson{i}" for i in range(2, 9))
 
 
-def _cell_causes(chart, units_here: pd.DataFrame, unit_signal: dict, *, reference_lots) -> dict:
+#: Cosine similarity a departing cell's signature (its mean residual per band) needs with the mean signature of the
+#: lot's other departing cells to count as the same departure (our choice: unrelated departures in 20-odd bands
+#: give about 0 ± 0.2; one change of the lot seen on several rigs, 0.8 or more; no source).
+SIGNATURE_AGREEMENT = 0.5
+
+
+def agreeing_signatures(signatures: dict) -> tuple[list, dict]:
+    """(keys that agree, {key: cosine}) for {key: signature (n_bands,) or None}: each signature against the mean
+    of the others' unit vectors. Keys without a signature are kept (nothing speaks against them); with fewer
+    than two signatures nothing is compared and every key is kept."""
+    have = {k: np.asarray(v, dtype=float) for k, v in signatures.items()
+            if v is not None and np.all(np.isfinite(v)) and np.linalg.norm(v) > 0}
+    if len(have) < 2:
+        return list(signatures), {}
+    unit = {k: v / np.linalg.norm(v) for k, v in have.items()}
+    cos = {}
+    for k, v in unit.items():
+        rest = np.mean([w for j, w in unit.items() if j != k], axis=0)
+        norm = float(np.linalg.norm(rest))
+        cos[k] = float(v @ rest / norm) if norm > 0 else 0.0
+    keep = [k for k in signatures if k not in cos or cos[k] >= SIGNATURE_AGREEMENT]
+    return keep, cos
+
+
+def _cell_causes(chart, units_here: pd.DataFrame, unit_signal: dict, *, reference_lots,
+                 signature_of=None) -> dict:
     """Cause and evidence of every non-reference cell of one (event, statistic) chart, keyed (lot, rig), with the
     lots and rigs found to be causes."""
     pts = chart.points
@@ -227,8 +255,14 @@ def _cell_causes(chart, units_here: pd.DataFrame, unit_signal: dict, *, referenc
         # a cell carried by one of its units is that unit's, not evidence for its lot
         departing = sorted(rg for rg, zz in zip(g["rig"], g["z"]) if zz > DEPART_SIGMAS and (lot, rg) not in by_units)
         effect = float(lot_eff.get(lot, 0.0)) + overall
+        agreement: dict = {}
+        if signature_of is not None and len(departing) >= 2:
+            # a lot cause needs the same departure on several rigs: which bands carry it must agree
+            departing, agreement = agreeing_signatures({rg: signature_of(lot, rg) for rg in departing})
         if m >= 2 and len(departing) >= max(2, math.ceil(m / 2)) and effect > DEPART_SIGMAS:
             lot_cause[lot] = {"rigs_departing": departing, "rigs": m, "lot_effect_sd": round(effect, 2)}
+            if agreement:
+                lot_cause[lot]["signature_agreement"] = {rg: round(c, 2) for rg, c in agreement.items()}
     for key in [k for k in by_units if k[0] in lot_cause]:
         del by_units[key]  # within a lot that departs as a whole, its units' signals are the lot's
     rig_cause: dict[str, dict] = {}
@@ -329,7 +363,7 @@ def rig_backgrounds(bg: pd.DataFrame, *, reference_lots) -> tuple[pd.DataFrame, 
 
 
 def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, reference_lots: dict,
-           rules: str = "we", background: pd.DataFrame | None = None) -> list[Decision]:
+           rules: str = "we", background: pd.DataFrame | None = None, signature_of=None) -> list[Decision]:
     """Every signal at every level, with its suggested cause (the rules at the head of this section).
 
     units: per (event, statistic, lot, rig, unit) rows with site, n (actuations that passed QC with a value),
@@ -337,7 +371,9 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
     MeanLimits}}. flagged: one row per flagged actuation and event (actuation_id, event or None, statistics
     (list of flag statistics, "qc:<check>" for quality checks), value, limit (of the strongest), site, rig, lot,
     unit, recorded_at). reference_lots: {event: lots of its active model}. background: per-actuation background
-    levels (rig_backgrounds' input), or None.
+    levels (rig_backgrounds' input), or None. signature_of: (event, lot, rig) -> the cell's mean residual per
+    band (n_bands,) or None; called only for the cells of a lot that departs on several rigs (None: signatures
+    are not compared).
     """
     all_refs = sorted({lot for v in reference_lots.values() for lot in v})
     bg_cells, bg_odd = rig_backgrounds(background, reference_lots=all_refs)
@@ -355,7 +391,7 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
             continue
         n = g["n"].to_numpy(dtype=float)
         ucl = np.asarray(lim.ucl(n), dtype=float)
-        zs = (g["mean"].to_numpy(dtype=float) - lim.centre) / np.asarray(lim.sd(n), dtype=float)
+        zs = np.asarray(lim.standardised(g["mean"].to_numpy(dtype=float), n), dtype=float)
         for row, lim_y, z in zip(g.itertuples(index=False), ucl, zs):
             if row.reference or not (np.isfinite(z) and row.mean > lim_y):
                 continue
@@ -377,7 +413,8 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
             chart = _chart(pts, refs, rules)
             here = u[(u["event"] == event) & (u["statistic"] == stat)]
             sig = {(lot, un): True for (e, lot, un) in unit_signal if e == event}
-            causes = _cell_causes(chart, here, sig, reference_lots=refs)
+            reader = None if signature_of is None else (lambda lot, rig, _e=event: signature_of(_e, lot, rig))
+            causes = _cell_causes(chart, here, sig, reference_lots=refs, signature_of=reader)
             if not causes:
                 continue
             for lot, ev in causes["lots"].items():
@@ -450,9 +487,19 @@ def decide(units: pd.DataFrame, limits: dict, flagged: pd.DataFrame, *, referenc
         if cause not in ("lot", "rig"):
             cause = "lot" if lot in lots_found else "unit"
         unit_cause[(event, lot, unit)] = cause
+        ev = {"z": round(z, 2), "actuations": int(row.n)}
+        if stat == BLOCK_STATISTIC:  # a T², not a log: shown as it is, with the features that carry it
+            value, limit = _finite(row.mean), _finite(lim_y)
+            lim = limits[event][stat]
+            dep = lim.departures(getattr(row, "vector", None)) if getattr(row, "vector", None) is not None else None
+            if dep is not None and lim.names:
+                ev["departures_pct"] = {name: round(100.0 * math.expm1(float(v)), 2)
+                                        for name, v in zip(lim.names, dep[0])}
+        else:
+            value, limit = _finite(math.exp(row.mean)), _finite(math.exp(lim_y))
         out.append(Decision(
-            "unit", event, stat, _finite(math.exp(row.mean)), _finite(math.exp(lim_y)), "beyond", row.site, row.rig,
-            lot, unit, None, cause, {"z": round(z, 2), "actuations": int(row.n)}, row.first, row.last))
+            "unit", event, stat, value, limit, "beyond", row.site, row.rig, lot, unit, None, cause, ev, row.first,
+            row.last))
     for r in flagged.itertuples(index=False) if len(flagged) else []:
         stats_ = list(r.statistics)
         qc = sorted({s[3:] for s in stats_ if str(s).startswith("qc:")})
@@ -501,7 +548,8 @@ def evidence_words(d: Decision) -> str:
     """The plain-language evidence of a decision (what the dashboard and the export show)."""
     e = d.evidence or {}
     what = {"event_spe_ratio": "event residual", "trajectory_distance": "trajectory distance",
-            "t2_ratio": "Hotelling T²", "spe_ratio": "SPE"}.get(d.statistic, d.statistic)
+            "t2_ratio": "Hotelling T²", "spe_ratio": "SPE", BLOCK_STATISTIC: "resonance T²"}.get(d.statistic,
+                                                                                                 d.statistic)
     if d.cause == "recording" and e.get("checks"):
         return f"the recording failed its quality check(s): {', '.join(e.get('checks', []))}"
     if d.level == "cell" and e.get("lot_departs_in"):
@@ -517,6 +565,13 @@ def evidence_words(d: Decision) -> str:
                              "do not: look at this recording",
                None: f"neither unit {d.unit} nor lot {d.lot} on rig {d.rig} signals as a whole"}[e.get("via")]
         return f"flagged on {', '.join(map(str, e.get('statistics', [])))}; {via}"
+    if d.level == "unit" and d.statistic == BLOCK_STATISTIC:
+        dep = e.get("departures_pct") or {}
+        top = sorted(dep.items(), key=lambda kv: -abs(kv[1]))[:2]
+        moved = ("; " + ", ".join(f"{name} {v:+.1f} %" for name, v in top)) if top else ""
+        tail = {"lot": f"; its lot {d.lot} departs as a whole", "rig": f"; rig {d.rig} departs", "unit": ""}[d.cause]
+        return (f"unit {d.unit}: its resonances over {e.get('actuations')} actuations depart, T² {d.value:.3g} "
+                f"beyond its limit {d.limit:.3g} ({e.get('z')} SD){moved}{tail}")
     if d.level == "unit":
         return (f"unit {d.unit}: mean {what} {d.value:.3g} over {e.get('actuations')} actuations, beyond its limit "
                 f"{d.limit:.3g} ({e.get('z')} SD)" + {"lot": f"; its lot {d.lot} departs as a whole",
@@ -527,8 +582,12 @@ def evidence_words(d: Decision) -> str:
                if cells else "; no single rig's cell signals")
         return f"lot {d.lot}: the mean over its rigs is beyond the lot-by-lot limit ({what}){why}"
     if d.cause == "lot" and e.get("rigs_departing"):
+        agree = e.get("signature_agreement") or {}
+        kept = [agree[r] for r in e["rigs_departing"] if r in agree]
+        same = (f", in the same bands on each (signature agreement {min(kept):.2f}-{max(kept):.2f})"
+                if kept else "")
         return (f"lot {d.lot} departs on {len(e['rigs_departing'])} of {e.get('rigs')} rigs "
-                f"({', '.join(e['rigs_departing'])}); lot effect {e.get('lot_effect_sd')} chart SD ({what})")
+                f"({', '.join(e['rigs_departing'])}){same}; lot effect {e.get('lot_effect_sd')} chart SD ({what})")
     if d.level == "rig" and d.statistic == "background":
         return (f"rig {d.rig}: its background before the first event departs from its {e.get('reference_from')} "
                 f"in lots {', '.join(e.get('background_lots', []))} (of {e.get('of_lots')} new lots)")

@@ -25,7 +25,16 @@ from analysis.monitor.charts import (
     xbar_s_chart,
 )
 from analysis.monitor.contributions import Contributions, band_contributions
-from analysis.monitor.levels import GROUP_STATISTICS, MeanLimits, fit_mean_limits, group_limits_from_model
+from analysis.monitor.levels import (
+    BLOCK_STATISTIC,
+    GROUP_STATISTICS,
+    BlockMeanLimits,
+    MeanLimits,
+    block_limits_from_model,
+    fit_block_limits,
+    fit_mean_limits,
+    group_limits_from_model,
+)
 from analysis.monitor.limits import (
     ControlConstants,
     control_constants,
@@ -63,6 +72,7 @@ __all__ = [
     "LotChart", "lot_chart", "RULE_SETS", "MIN_LIMIT_POINTS", "Precision", "precision_from_groups",
     # group means (units), robust two-way decomposition
     "MeanLimits", "fit_mean_limits", "group_limits_from_model", "GROUP_STATISTICS",
+    "BlockMeanLimits", "fit_block_limits", "block_limits_from_model", "BLOCK_STATISTIC",
     "MedianPolish", "median_polish", "polish_frame",
     # run rules
     "RuleViolation", "RULES", "WESTERN_ELECTRIC", "NELSON", "check_rules",

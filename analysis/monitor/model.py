@@ -66,6 +66,19 @@ Actuation-level decision
     reference lots' (Gaussian on the normal-score scale) and on the reference lots showing the variation within
     a lot (units, days, rigs) as it will be: what they do not show (a rig or day that varies more later) is not
     in the rate.
+
+Resonance block (``fit(..., resonance=R)``)
+    Band levels cannot see a resonance that moves a few per cent inside one band. An event may therefore carry a
+    block of per-actuation resonance features (analysis.signal.resonance: peak frequencies and half-power
+    bandwidths, in Hz), scaled as a block of its own: their natural logs (a shift in per cent is then one size
+    everywhere), centred on the reference mean and whitened by the reference covariance (Cholesky), so that
+    the fifth actuation statistic, T² = |W(r - centre)|², is Hotelling's T² of the block; it joins the four in
+    the held-out calibration (each fold with its own centre and covariance) and the copula, so the actuation's
+    nominal rate is kept with it. The block does not enter the PCA: a few features among tens of bands would
+    weigh on the components only as much as the scaling let them, and their own covariance is the natural
+    metric for them. The whitened held-out rows (``calibration_resonance_whitened_``) carry the unit-level
+    limits (analysis.monitor.levels.BlockMeanLimits), where a unit's mean over its actuations sees a shift the
+    single actuation cannot. A feature not found (NaN) reads as the reference median.
 """
 
 from __future__ import annotations
@@ -111,7 +124,12 @@ class MonitoringResult:
 
     Shapes: scores (n_act, n_slices, A); t2, spe, outside_envelope (n_act, n_slices); the rest (n_act,).
     t2_limit and spe_limit are the per-slice limits at the model's alpha; the *_threshold values are the
-    calibrated actuation-level thresholds; slice_times_s (n_slices,) in s or None.
+    calibrated actuation-level thresholds; slice_times_s (n_slices,) in s or None. event_residual (n_act, n_bands)
+    is the residual of the slice-mean scaled band levels (the event residual's vector: which bands carry a
+    departure, its signature). The resonance fields are None
+    for a model without a resonance block; resonance_whitened and resonance_departure are (n_act, p): the
+    features whitened by the reference covariance, and their natural-log departures from the reference centre;
+    resonance_spread (p,) the reference SD of each log feature.
     """
 
     scores: np.ndarray
@@ -139,10 +157,19 @@ class MonitoringResult:
     event_spe_ratio: np.ndarray | None = None
     event_spe_threshold: float = math.inf
     event_spe_flag: np.ndarray | None = None
+    event_residual: np.ndarray | None = None
+    resonance_t2: np.ndarray | None = None
+    resonance_threshold: float = math.inf
+    resonance_flag: np.ndarray | None = None
+    resonance_whitened: np.ndarray | None = None
+    resonance_departure: np.ndarray | None = None
+    resonance_names: tuple = ()
+    resonance_spread: np.ndarray | None = None
 
     def raised(self, i):
         """The statistics that flag actuation i, as (statistic, value, threshold, plain-language reason) tuples;
-        statistic is "t2", "spe", "trajectory" or "event_residual". Empty when the actuation is not flagged."""
+        statistic is "t2", "spe", "trajectory", "event_residual" or "resonance". Empty when the actuation is not
+        flagged."""
         n_slices = self.t2.shape[1]
 
         def at(s):
@@ -166,6 +193,13 @@ class MonitoringResult:
                         f"the event's mean spectrum departs from the model: residual {self.event_spe_ratio[i]:.1f}× "
                         f"its reference median (threshold {self.event_spe_threshold:.1f}), a small change that lasts "
                         "the whole event"))
+        if self.resonance_flag is not None and self.resonance_flag[i]:
+            d = self.resonance_departure[i]
+            j = int(np.argmax(np.abs(d) / self.resonance_spread)) if self.resonance_spread is not None else 0
+            out.append(("resonance", self.resonance_t2[i], self.resonance_threshold,
+                        f"the resonances depart: T² {self.resonance_t2[i]:.1f} (threshold "
+                        f"{self.resonance_threshold:.1f}), most the {self.resonance_names[j]} at "
+                        f"{100.0 * math.expm1(float(d[j])):+.1f} % of the reference's"))
         return out
 
     def reasons(self, i):
@@ -203,8 +237,9 @@ def _pca(z):
     return lam, v * np.where(sign == 0, 1.0, sign)
 
 
-def _project(x3, mean, scale, loadings, eigenvalues):
-    """Scores (n, s, A), T² (n, s), SPE (n, s) and the squared norm of the slice-mean residual (n,).
+def _project(x3, mean, scale, loadings, eigenvalues, *, residual=False):
+    """Scores (n, s, A), T² (n, s), SPE (n, s) and the squared norm of the slice-mean residual (n,); with
+    ``residual`` also the slice-mean residual itself (n, b).
 
     One matmul for the scores, one for the reconstruction."""
     n, s, b = x3.shape
@@ -218,7 +253,8 @@ def _project(x3, mean, scale, loadings, eigenvalues):
     z -= t @ loadings.T
     spe = np.einsum("ij,ij->i", z, z)
     e_mean = z.reshape(n, s, b).mean(axis=1)
-    return t.reshape(n, s, -1), t2.reshape(n, s), spe.reshape(n, s), np.einsum("ij,ij->i", e_mean, e_mean)
+    out = t.reshape(n, s, -1), t2.reshape(n, s), spe.reshape(n, s), np.einsum("ij,ij->i", e_mean, e_mean)
+    return (*out, e_mean) if residual else out
 
 
 def _envelope(scores):
@@ -233,6 +269,26 @@ def _actuation_stats(scores, t2, spe, event_spe, t2_limit, spe_limit, event_spe_
     d = (scores - centre) / spread
     return (t2.max(axis=1) / t2_limit, spe.max(axis=1) / spe_limit, np.mean(d**2, axis=(1, 2)),
             event_spe / event_spe_ref)
+
+
+def _block_fit(r):
+    """(centre (p,), whitening W (p, p), fill (p,)) of a block of log features r (n, p): w = W·(r - centre) has
+    identity covariance over the reference rows. A missing value (NaN) is filled with its column's median."""
+    fill = np.array([np.median(c[np.isfinite(c)]) if np.any(np.isfinite(c)) else 0.0 for c in r.T])
+    r = np.where(np.isfinite(r), r, fill)
+    centre = r.mean(axis=0)
+    cov = np.atleast_2d(np.cov(r, rowvar=False, ddof=1))
+    # a feature constant in the reference (or two that move together) keeps the inverse finite
+    ridge = 1e-9 * max(float(np.trace(cov)) / cov.shape[0], 1e-12)
+    whiten = np.linalg.inv(np.linalg.cholesky(cov + ridge * np.eye(cov.shape[0])))
+    return centre, whiten, fill
+
+
+def _block_stats(r, centre, whiten, fill):
+    """(T² (n,), whitened rows (n, p), departures r - centre (n, p)) of log features r (n, p)."""
+    d = np.where(np.isfinite(r), r, fill) - centre
+    w = d @ whiten.T
+    return np.einsum("ij,ij->i", w, w), w, d
 
 
 def _median_ref(values):
@@ -463,16 +519,28 @@ class ReferenceModel:
             raise ModelError(f"X has {s} slices but the reference model was fitted with {self.n_slices_} slices")
 
     # ------------------------------------------------------------------ fit
-    def fit(self, X, *, lots=None, slice_times_s=None, band_centres_hz=None):
+    def fit(self, X, *, lots=None, slice_times_s=None, band_centres_hz=None, resonance=None,
+            resonance_names=None):
         """Learn scaling, loadings, limits, envelope and actuation thresholds from reference actuations.
 
         X: (n_actuations, n_slices, n_bands) band levels in dB; lots: (n_actuations,) lot labels or None;
-        slice_times_s: (n_slices,) slice times in s; band_centres_hz: (n_bands,) band centres in Hz.
-        Returns self.
+        slice_times_s: (n_slices,) slice times in s; band_centres_hz: (n_bands,) band centres in Hz;
+        resonance: (n_actuations, p) positive resonance features (frequencies and bandwidths in Hz; NaN where
+        one was not found) or None, with resonance_names: p names for messages. Returns self.
         """
         self._validate_params()
         x = _check_x(X)
         n_act, n_slices, n_bands = x.shape
+        r = self._check_resonance(resonance, n_act)
+        if r is not None:
+            names = tuple(str(v) for v in (resonance_names if resonance_names is not None else
+                                           [f"resonance feature {j + 1}" for j in range(r.shape[1])]))
+            if len(names) != r.shape[1]:
+                raise ParameterError(f"resonance_names must name the {r.shape[1]} resonance features; got "
+                                     f"{len(names)}")
+            if r.shape[1] >= n_act - 1:
+                raise ParameterError(f"a resonance block of {r.shape[1]} features needs more than "
+                                     f"{r.shape[1] + 1} reference actuations; got {n_act}")
         if n_act < 3 or n_bands < 2:
             raise ParameterError(f"X needs at least 3 actuations and 2 bands; got shape {x.shape}")
         if slice_times_s is not None:
@@ -545,9 +613,16 @@ class ReferenceModel:
         self.spe_limit_box_ = spe_limit_box(spe_mean=float(spe.mean()), spe_var=float(spe.var(ddof=1)),
                                             alpha=self.alpha)
         self.envelope_centre_, self.envelope_spread_ = _envelope(scores)
+        self.resonance_names_ = names if r is not None else ()
+        self.resonance_centre_ = self.resonance_whiten_ = self.resonance_fill_ = None
+        self.calibration_resonance_t2_ = self.calibration_resonance_whitened_ = None
+        self.resonance_threshold_ = math.inf
+        if r is not None:
+            self.resonance_centre_, self.resonance_whiten_, self.resonance_fill_ = _block_fit(r)
 
         # Actuation-level calibration on held-out actuations (module docstring).
-        held = np.zeros((4, n_act))
+        held = np.zeros((4 if r is None else 5, n_act))
+        held_w = None if r is None else np.zeros_like(r)
         for train, test, f_mean, f_scale, f_lam, f_v in fold_fits:
             p_f, lam_f = f_v[:, :a], f_lam[:a]
             sc_tr, _, _, ev_tr = _project(x[train], f_mean, f_scale, p_f, lam_f)
@@ -555,16 +630,36 @@ class ReferenceModel:
             t2_lim = t2_limit_new(train.size * n_slices, a, self.alpha)
             spe_lim = spe_limit_jackson_mudholkar(f_lam[a:], self.alpha)
             sc, t2_h, spe_h, ev_h = _project(x[test], f_mean, f_scale, p_f, lam_f)
-            held[:, test] = _actuation_stats(sc, t2_h, spe_h, ev_h, t2_lim, spe_lim, _median_ref(ev_tr), centre,
-                                             spread)
+            held[:4, test] = _actuation_stats(sc, t2_h, spe_h, ev_h, t2_lim, spe_lim, _median_ref(ev_tr), centre,
+                                              spread)
+            if r is not None:
+                held[4, test], held_w[test], _ = _block_stats(r[test], *_block_fit(r[train]))
         (self.calibration_t2_ratio_, self.calibration_spe_ratio_, self.calibration_distance_,
-         self.calibration_event_spe_ratio_) = held.copy()
+         self.calibration_event_spe_ratio_) = held[:4].copy()
+        if r is not None:
+            self.calibration_resonance_t2_, self.calibration_resonance_whitened_ = held[4].copy(), held_w
         (thresholds, self.actuation_alpha_each_, self.calibration_lot_variance_, self.calibration_within_variance_,
          self.calibration_tail_shape_) = _calibrate(held, self.actuation_alpha,
                                                     lots=np.asarray(lots) if fold_kind == "lot" else None)
         (self.t2_ratio_threshold_, self.spe_ratio_threshold_, self.distance_threshold_,
-         self.event_spe_threshold_) = thresholds
+         self.event_spe_threshold_) = thresholds[:4]
+        if r is not None:
+            self.resonance_threshold_ = thresholds[4]
         return self
+
+    def _check_resonance(self, resonance, n_act):
+        """The block's natural logs (n_act, p), or None; the block's shape and values checked."""
+        if resonance is None:
+            return None
+        r = np.asarray(resonance, dtype=float)
+        if r.ndim != 2 or r.shape[0] != n_act or r.shape[1] < 1:
+            raise ParameterError(f"resonance must have shape ({n_act}, n_features) (one row per actuation); got "
+                                 f"shape {r.shape}")
+        bad = np.isfinite(r) & (r <= 0)
+        if np.any(bad) or np.any(np.isinf(r)):
+            raise ParameterError(f"resonance features must be positive (Hz) or NaN (not found); got "
+                                 f"{int(np.sum(bad | np.isinf(r)))} non-positive or infinite values")
+        return np.log(np.where(np.isfinite(r), r, np.nan))
 
     def _folds(self, n_act, lots):
         """Held-out actuation index sets: leave-one-lot-out with >= 3 lots, else interleaved K-fold."""
@@ -582,12 +677,35 @@ class ReferenceModel:
         return [idx[idx % k == f] for f in range(k)], "actuation", lot_labels
 
     # ------------------------------------------------------------------ score
-    def score(self, X):
-        """Score actuations X (n_act, n_slices, n_bands) against the model; returns a MonitoringResult."""
+    @property
+    def has_resonance(self) -> bool:
+        """Whether the model has a resonance block (then score() needs the actuations' resonance features)."""
+        return getattr(self, "resonance_centre_", None) is not None
+
+    def score(self, X, *, resonance=None):
+        """Score actuations X (n_act, n_slices, n_bands) against the model; returns a MonitoringResult.
+
+        resonance: (n_act, p) resonance features as given to fit(), required when the model has a resonance
+        block (and ignored when it has none)."""
         self._check_fitted()
         x = _check_x(X)
         self._check_shape(x)
-        scores, t2, spe, event_spe = _project(x, self.mean_, self.scale_, self.loadings_, self.eigenvalues_)
+        block = {}
+        if self.has_resonance:
+            if resonance is None:
+                raise ModelError(f"this model has a resonance block ({', '.join(self.resonance_names_)}); score() "
+                                 "needs the actuations' resonance features")
+            r = self._check_resonance(resonance, x.shape[0])
+            if r.shape[1] != self.resonance_centre_.size:
+                raise ModelError(f"resonance has {r.shape[1]} features but the model was fitted with "
+                                 f"{self.resonance_centre_.size}")
+            t2_r, w_r, d_r = _block_stats(r, self.resonance_centre_, self.resonance_whiten_, self.resonance_fill_)
+            block = dict(resonance_t2=t2_r, resonance_threshold=self.resonance_threshold_,
+                         resonance_flag=t2_r > self.resonance_threshold_, resonance_whitened=w_r,
+                         resonance_departure=d_r, resonance_names=tuple(self.resonance_names_),
+                         resonance_spread=np.sqrt(np.sum(np.linalg.inv(self.resonance_whiten_) ** 2, axis=1)))
+        scores, t2, spe, event_spe, e_mean = _project(x, self.mean_, self.scale_, self.loadings_, self.eigenvalues_,
+                                                      residual=True)
         dev = np.abs(scores - self.envelope_centre_) > self.envelope_k * self.envelope_spread_
         outside = dev.any(axis=2)
         t2_ratio, spe_ratio, dist, event_spe_ratio = _actuation_stats(
@@ -619,11 +737,13 @@ class ReferenceModel:
             t2_flag=t2_flag,
             spe_flag=spe_flag,
             trajectory_flag=traj_flag,
-            flagged=t2_flag | spe_flag | traj_flag | event_spe_flag,
+            flagged=t2_flag | spe_flag | traj_flag | event_spe_flag | block.get("resonance_flag", False),
             slice_times_s=self.slice_times_s_,
             event_spe_ratio=event_spe_ratio,
             event_spe_threshold=self.event_spe_threshold_,
             event_spe_flag=event_spe_flag,
+            event_residual=e_mean,
+            **block,
         )
 
     def contributions(self, x_slice, *, slice_index=None):
@@ -678,9 +798,12 @@ class ReferenceModel:
     _ARRAYS = ("mean_", "scale_", "loadings_", "eigenvalues_", "residual_eigenvalues_", "explained_variance_ratio_",
                "envelope_centre_", "envelope_spread_", "calibration_t2_ratio_", "calibration_spe_ratio_",
                "calibration_distance_", "calibration_event_spe_ratio_", "slice_times_s_", "band_centres_hz_",
-               "calibration_lot_variance_", "calibration_within_variance_", "calibration_tail_shape_")
+               "calibration_lot_variance_", "calibration_within_variance_", "calibration_tail_shape_",
+               "resonance_centre_", "resonance_whiten_", "resonance_fill_", "calibration_resonance_t2_",
+               "calibration_resonance_whitened_")
     # The last three came after the first models were stored: an array missing from an older file loads as None
-    # (its thresholds, stored as scalars, score as they did), so the format version stays 1.
+    # (its thresholds, stored as scalars, score as they did), so the format version stays 1; so do the
+    # resonance block's (a model without one has none).
     _SCALARS = ("n_components_", "n_reference_", "n_actuations_", "n_slices_", "n_bands_", "t2_limit_",
                 "t2_limit_reference_",
                 "spe_limit_", "spe_limit_box_", "t2_ratio_threshold_", "spe_ratio_threshold_",
@@ -709,6 +832,8 @@ class ReferenceModel:
             "learned": {k: (int(v) if _is_int(v) else float(v)) for k, v in
                         ((k, getattr(self, k)) for k in self._SCALARS)},
             "reference_lots": self.reference_lots_,
+            "resonance": ({"names": list(self.resonance_names_), "threshold": float(self.resonance_threshold_)}
+                          if self.has_resonance else None),
             "cross_validation": {
                 "press": [float(p) if np.isfinite(p) else None for p in self.cv_.press],
                 "chosen": self.cv_.chosen, "folds": self.cv_.folds, "n_folds": self.cv_.n_folds,
@@ -750,6 +875,15 @@ class ReferenceModel:
             press = np.array([np.inf if p is None else p for p in cv["press"]], dtype=float)
             model.cv_ = CrossValidationCurve(np.arange(press.size), press, cv["chosen"], cv["folds"], cv["n_folds"])
             model.reference_lots_ = doc.get("reference_lots")
+            block = doc.get("resonance")
+            model.resonance_names_, model.resonance_threshold_ = (), math.inf
+            if block is not None:
+                model.resonance_names_ = tuple(str(v) for v in block["names"])
+                model.resonance_threshold_ = float(block["threshold"])
+                if model.resonance_centre_ is None or model.resonance_centre_.size != len(model.resonance_names_):
+                    raise ValueError("the resonance block's arrays do not match its names")
+            elif model.resonance_centre_ is not None:
+                raise ValueError("resonance arrays without the resonance block's names")
         except (KeyError, TypeError, ValueError) as exc:
             raise ModelError(f"{source}: reference model is incomplete or damaged ({exc!r})") from exc
         model.metadata_ = doc.get("metadata", {})

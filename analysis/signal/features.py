@@ -34,7 +34,8 @@ class EventFeatures:
     (n_bands, 2). dominant_hz: frequency of the largest bin of the event's mean (weighted) power spectrum inside
     the band range. centroid_hz: power-weighted mean frequency inside the band range (NaN for a silent event).
     band_energy_db: level of the whole event over all bands (mean over slices of the summed band mean squares).
-    padded_slices: how many slices ran outside the recording and were zero-padded.
+    padded_slices: how many slices ran outside the recording and were zero-padded. resonances: the resonance
+    features of the event (analysis.signal.resonance), one per range asked for, else empty.
     """
 
     name: str
@@ -49,6 +50,7 @@ class EventFeatures:
     padded_slices: int
     weighting: str = "none"
     band_nominal_hz: np.ndarray | None = None
+    resonances: tuple = ()  # analysis.signal.resonance.Resonance, one per range the profile names
 
     @property
     def n_slices(self) -> int:

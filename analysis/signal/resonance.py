@@ -8,7 +8,8 @@ interpolation: exact for a Gaussian window, whose transform's log is a parabola)
 decay 1/τ of x(t) ∝ exp(-t/τ) from the least-squares slope of the peak's level over the slices, from the loudest
 slice to where it has fallen ``decay_range_db``; a sustained resonance reads about 0.
 
-Not yet used by the pipeline or the reference model: this is the pure core the model's resonance block will use.
+An event whose profile names resonance ranges carries these features (analysis.pipeline); the peak frequencies
+and bandwidths (``block_values``) are the reference model's resonance block (analysis.monitor.model).
 """
 
 from __future__ import annotations
@@ -22,7 +23,7 @@ from analysis.errors import ParameterError
 from analysis.signal._common import mean_square_db
 from analysis.signal.spectra import rfft_freqs, slice_grid, stft_power
 
-__all__ = ["Resonance", "interpolate_peak", "resonances"]
+__all__ = ["Resonance", "interpolate_peak", "resonances", "BLOCK_FIELDS", "block_values", "block_names"]
 
 
 @dataclass(frozen=True)
@@ -115,3 +116,18 @@ def _decay_rate(track, times, range_db):
         return float("nan")
     slope = np.polyfit(times[i0:stop], db[i0:stop], 1)[0]  # dB per s of power = 20·log10 of amplitude
     return float(-slope * math.log(10.0) / 20.0)
+
+
+#: The features of each resonance that enter a reference model's resonance block, in this order.
+BLOCK_FIELDS = ("frequency_hz", "bandwidth_hz")
+
+
+def block_values(found) -> np.ndarray:
+    """The resonance block of one event: (len(found)·2,) the peak frequency and half-power bandwidth (Hz) of
+    each Resonance in order (NaN where one was not found)."""
+    return np.array([getattr(r, f) for r in found for f in BLOCK_FIELDS], dtype=float)
+
+
+def block_names(ranges_hz) -> tuple[str, ...]:
+    """Names of the block's features, for messages: 'peak frequency in 900-1600 Hz', 'bandwidth in ...'."""
+    return tuple(f"{what} in {lo:g}-{hi:g} Hz" for lo, hi in ranges_hz for what in ("peak frequency", "bandwidth"))

@@ -20,7 +20,8 @@ from analysis.monitor import ReferenceModel
 
 from .types import ScoredEvent
 
-__all__ = ["f32", "f64", "num", "text", "from_f32", "from_f64", "event_arrays", "model_to_blobs", "model_from_blobs",
+__all__ = ["f32", "f64", "num", "text", "from_f32", "from_f64", "event_arrays", "resonances_blob",
+           "resonances_from_blob", "model_to_blobs", "model_from_blobs",
            "scored_events", "missing_event"]
 
 
@@ -74,6 +75,25 @@ def from_f64(blob) -> np.ndarray | None:
     return None if blob is None else np.frombuffer(blob, dtype="<f8")
 
 
+def resonances_blob(found) -> bytes | None:
+    """An event's resonances (analysis.signal.resonance.Resonance) as float64 bytes, (n, 6): low_hz, high_hz,
+    frequency_hz, level_db, bandwidth_hz, decay_per_s; None when there are none."""
+    if not found:
+        return None
+    return f64(np.array([[r.low_hz, r.high_hz, r.frequency_hz, r.level_db, r.bandwidth_hz, r.decay_per_s]
+                         for r in found], dtype=float).ravel())
+
+
+def resonances_from_blob(blob) -> tuple:
+    """The Resonance tuple stored by resonances_blob (empty for a NULL column)."""
+    from analysis.signal.resonance import Resonance
+
+    if blob is None:
+        return ()
+    a = from_f64(blob).reshape(-1, 6)
+    return tuple(Resonance(*(float(v) for v in row)) for row in a)
+
+
 def event_arrays(row) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
     """(levels (n_slices, n_bands) float32, slice_times_s, band_centres_hz) of an events row with the columns
     levels_f32, n_slices, n_bands, slice_times_f64 and band_centres_f64; None when it holds no band levels."""
@@ -104,11 +124,14 @@ def scored_events(m) -> list[ScoredEvent]:
             t2_max=num(m.t2_max[i]), spe_max=num(m.spe_max[i]), t2_ratio=num(m.t2_ratio[i]),
             spe_ratio=num(m.spe_ratio[i]), trajectory_distance=num(m.trajectory_distance[i]),
             event_spe_ratio=num(m.event_spe_ratio[i]) if m.event_spe_ratio is not None else None,
+            resonance_t2=num(m.resonance_t2[i]) if m.resonance_t2 is not None else None,
+            residual_f32=f32(m.event_residual[i]) if m.event_residual is not None else None,
             slices_outside=int(m.slices_outside[i]), flagged=bool(m.flagged[i]),
         )
         flags = tuple(dict(statistic=stat, value=num(v), limit_value=num(lim), reason=why)
                       for stat, v, lim, why in m.raised(i))
-        out.append(ScoredEvent(traj, flags))
+        comps = () if m.resonance_whitened is None else tuple(float(v) for v in m.resonance_whitened[i])
+        out.append(ScoredEvent(traj, flags, comps))
     return out
 
 
@@ -116,5 +139,6 @@ def missing_event(reason: str) -> ScoredEvent:
     """The ScoredEvent of an event that has no band levels to score: flagged as missing, with the reason."""
     traj = dict(n_slices=None, n_components=None, scores_f32=None, t2_f32=None, spe_f32=None, t2_max=None,
                 spe_max=None, t2_ratio=None, spe_ratio=None, trajectory_distance=None, event_spe_ratio=None,
+                resonance_t2=None, residual_f32=None,
                 slices_outside=None, flagged=True)
     return ScoredEvent(traj, (dict(statistic="event_missing", value=None, limit_value=None, reason=reason),))

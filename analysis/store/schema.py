@@ -146,6 +146,8 @@ events = Table(
     Column("levels_f32", LargeBinary),  # (n_slices, n_bands) float32 band levels
     Column("slice_times_f64", LargeBinary),  # (n_slices,) s from the onset
     Column("band_centres_f64", LargeBinary),  # (n_bands,) Hz
+    # (n_ranges, 4) float64 per profile resonance range: frequency_hz, level_db, bandwidth_hz, decay_per_s
+    Column("resonances_f64", LargeBinary),
     UniqueConstraint("actuation_id", "name", name="uq_events_actuation_name"),
     Index("ix_events_name", "name", "actuation_id"),
 )
@@ -193,11 +195,24 @@ trajectories = Table(
     Column("spe_ratio", Float),
     Column("trajectory_distance", Float),
     Column("event_spe_ratio", Float),
+    Column("resonance_t2", Float),  # T² of the resonance block (None for a model without one)
+    Column("residual_f32", LargeBinary),  # (n_bands,) slice-mean residual: which bands carry a departure
     Column("slices_outside", Integer),
     Column("flagged", Boolean, nullable=False),
     Column("flags_sha256", String(64)),  # checksum of these statistics and the flags they raised
     UniqueConstraint("actuation_id", "event", "model_id", name="uq_trajectories"),
     Index("ix_trajectories_model", "model_id", "actuation_id"),
+)
+
+#: The whitened resonance features of one event of one actuation under one model (one row per component k): a
+#: unit's mean of them, summed in the database, gives its unit-level T² (analysis.monitor.levels).
+resonance_components = Table(
+    "resonance_components", metadata,
+    Column("actuation_id", Integer, ForeignKey("actuations.id"), primary_key=True),
+    Column("model_id", Integer, ForeignKey("reference_models.id"), primary_key=True),
+    Column("k", Integer, primary_key=True),
+    Column("value", Float, nullable=False),
+    Index("ix_resonance_components_model", "model_id", "actuation_id"),
 )
 
 #: One row per reason an actuation is flagged. model_id is NULL for quality-check flags, which need no model.

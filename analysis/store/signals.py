@@ -2,7 +2,8 @@
 
 ``refresh_signals(conn, profile)`` runs inside the caller's write transaction: the worker's commit of a batch,
 each chunk of a re-scoring. It reads per-unit sums of the natural log of each per-actuation statistic under the
-active models (actuations that passed their quality checks only), the unit limits stored with each model, and
+active models (actuations that passed their quality checks only) and, for a model with a resonance block, the
+per-unit sums of its whitened components (a unit's T² of their mean), the unit limits stored with each model, and
 the flagged actuations; asks analysis.triage.decide for every signal; and writes them: a signal raised again
 keeps its row (first_seen stays, last_seen and the values move), a new one is inserted, an active one no longer
 raised is set inactive. On PostgreSQL a transaction-scoped advisory lock makes concurrent refreshes of one
@@ -19,7 +20,7 @@ import pandas as pd
 from sqlalchemy import and_, bindparam, case, func, or_, select, text
 
 from analysis.errors import ParameterError
-from analysis.monitor.levels import GROUP_STATISTICS, MeanLimits
+from analysis.monitor.levels import BLOCK_STATISTIC, GROUP_STATISTICS, limits_from_dict
 from analysis.triage import decide, evidence_words
 
 from . import schema as db
@@ -27,7 +28,8 @@ from .codec import from_f32, num
 from .codec import text as stored_text
 from .queries._base import active_model_ids, df, placed_full
 
-__all__ = ["refresh_signals", "unit_summaries", "model_levels", "backgrounds"]
+__all__ = ["refresh_signals", "unit_summaries", "block_summaries", "model_levels", "backgrounds",
+           "signature_reader"]
 
 
 def model_levels(conn, profile: str) -> tuple[dict, dict, dict]:
@@ -43,7 +45,8 @@ def model_levels(conn, profile: str) -> tuple[dict, dict, dict]:
         try:
             meta = json.loads(r.model_json).get("metadata") or {}
             stored = meta.get("unit_limits") or {}
-            limits[r.event] = {k: MeanLimits.from_dict(v) for k, v in stored.items() if k in GROUP_STATISTICS}
+            limits[r.event] = {k: limits_from_dict(k, v) for k, v in stored.items()
+                               if k in GROUP_STATISTICS or k == BLOCK_STATISTIC}
         except (ValueError, AttributeError, ParameterError):
             # A model built before unit limits were stored (or a document that is not ours): no unit signals
             # for its event until it is rebuilt; the cell, lot and rig levels need no stored limits.
@@ -78,6 +81,64 @@ def unit_summaries(conn, profile: str, model_ids: dict) -> pd.DataFrame:
                 "first": pd.to_datetime(g["first"]), "last": pd.to_datetime(g["last"])}))
     cols = ["event", "statistic", "lot", "rig", "site", "unit", "n", "mean", "first", "last"]
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=cols)
+
+
+def block_summaries(conn, profile: str, model_ids: dict, limits: dict) -> pd.DataFrame:
+    """Per (event, lot, rig, unit) of the events whose model has a resonance block: the unit-summary row of
+    BLOCK_STATISTIC, whose mean is the T² of the unit's mean whitened resonance features (not a log), with the
+    mean vector in ``vector``. Actuations that passed QC only."""
+    a, c = db.actuations, db.resonance_components
+    frames = []
+    for event, (model_id, _version) in model_ids.items():
+        lim = (limits.get(event) or {}).get(BLOCK_STATISTIC)
+        if lim is None:
+            continue
+        stmt = (select(db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"), db.sites.c.name.label("site"),
+                       db.units.c.name.label("unit"), c.c.k, func.count(c.c.value).label("n"),
+                       func.sum(c.c.value).label("s1"), func.min(a.c.recorded_at).label("first"),
+                       func.max(a.c.recorded_at).label("last"))
+                .select_from(placed_full().join(c, and_(c.c.actuation_id == a.c.id, c.c.model_id == model_id)))
+                .where(and_(a.c.profile == profile, a.c.passed_qc.is_(True)))
+                .group_by(db.lots.c.name, db.rigs.c.name, db.sites.c.name, db.units.c.name, c.c.k))
+        g = df(conn, stmt)
+        if not len(g):
+            continue
+        g = g[g["k"] < lim.p]
+        keys = ["lot", "rig", "site", "unit"]
+        wide = g.pivot_table(index=keys, columns="k", values="s1", aggfunc="first").reindex(columns=range(lim.p))
+        n = g.groupby(keys)["n"].min().reindex(wide.index)
+        span = g.groupby(keys).agg(first=("first", "min"), last=("last", "max")).reindex(wide.index)
+        means = wide.to_numpy(dtype=float) / n.to_numpy(dtype=float)[:, None]
+        idx = wide.index.to_frame(index=False)
+        frames.append(pd.DataFrame({
+            "event": event, "statistic": BLOCK_STATISTIC, "lot": idx["lot"], "rig": idx["rig"],
+            "site": idx["site"], "unit": idx["unit"], "n": n.to_numpy(dtype=int),
+            "mean": lim.t2(means, n.to_numpy(dtype=float)), "first": pd.to_datetime(span["first"].to_numpy()),
+            "last": pd.to_datetime(span["last"].to_numpy()), "vector": list(means)}))
+    cols = ["event", "statistic", "lot", "rig", "site", "unit", "n", "mean", "first", "last", "vector"]
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=cols)
+
+
+def signature_reader(conn, profile: str, model_ids: dict):
+    """(event, lot, rig) -> the mean over the cell's actuations that passed QC of their slice-mean residual per
+    band under the event's active model (None when no scored actuation of the cell has one); read on demand and
+    kept, so a refresh reads only the cells it compares."""
+    a, t = db.actuations, db.trajectories
+    cache: dict = {}
+
+    def signature_of(event, lot, rig):
+        key = (event, lot, rig)
+        if key not in cache:
+            mid = model_ids.get(event, (None, None))[0]
+            rows = [] if mid is None else conn.execute(
+                select(t.c.residual_f32).select_from(placed_full().join(t, t.c.actuation_id == a.c.id))
+                .where(and_(t.c.model_id == mid, a.c.profile == profile, a.c.passed_qc.is_(True),
+                            db.lots.c.name == lot, db.rigs.c.name == rig, t.c.residual_f32.is_not(None)))).scalars()
+            vecs = [from_f32(b).astype(float) for b in rows]
+            cache[key] = np.mean(vecs, axis=0) if vecs and len({v.size for v in vecs}) == 1 else None
+        return cache[key]
+
+    return signature_of
 
 
 def _flagged(conn, profile: str) -> pd.DataFrame:
@@ -150,10 +211,14 @@ def refresh_signals(conn, profile: str, *, now=None) -> dict:
     now = now or db.utc_now()
     limits, refs, ids = model_levels(conn, profile)
     units = unit_summaries(conn, profile, ids)
+    blocks = block_summaries(conn, profile, ids, limits)
+    if len(blocks):
+        units = pd.concat([units, blocks], ignore_index=True)
     flagged = _flagged(conn, profile)
     # The rig's background is compared with its reference lots: none before the first reference is built.
     bg = backgrounds(conn, profile) if ids else None
-    decisions = decide(units, limits, flagged, reference_lots=refs, background=bg)
+    decisions = decide(units, limits, flagged, reference_lots=refs, background=bg,
+                       signature_of=signature_reader(conn, profile, ids))
     s = db.signals
     have = {r.key: (r.id, r.active) for r in conn.execute(select(s.c.key, s.c.id, s.c.active)
                                                            .where(s.c.profile == profile))}

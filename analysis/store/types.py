@@ -42,6 +42,7 @@ class ScoredEvent:
 
     trajectory: dict
     flags: tuple[dict, ...]
+    resonance_components: tuple[float, ...] = ()  # whitened resonance block (resonance_components rows)
 
     @property
     def flagged(self) -> bool:
@@ -96,6 +97,7 @@ STATISTICS = {s.key: s for s in (
               "trajectory_distance", True),
     Statistic("event_spe_ratio", "Event residual (× reference median)", "× median", "trajectories",
               "event_spe_ratio", True),
+    Statistic("resonance_t2", "Resonances (T² of the resonance block)", "", "trajectories", "resonance_t2", True),
     Statistic("slices_outside", "Slices outside the reference envelope", "slices", "trajectories", "slices_outside"),
     Statistic("onset_s", "Event onset", "s", "events", "onset_s"),
     Statistic("latency_s", "Event latency after its marker", "s", "events", "latency_s"),

@@ -14,7 +14,7 @@ from datetime import UTC, timedelta
 from sqlalchemy import and_, bindparam, func, select
 from sqlalchemy.dialects import postgresql, sqlite
 
-from .codec import f32, f64, num, text
+from .codec import f32, f64, num, resonances_blob, text
 from .errors import StoreError
 from .integrity import flags_digest, model_digest, qc_digest
 from .schema import (
@@ -27,6 +27,7 @@ from .schema import (
     qc_results,
     recordings,
     reference_models,
+    resonance_components,
     rigs,
     sites,
     trajectories,
@@ -234,13 +235,14 @@ def _event_row(actuation_id, ev, f) -> dict:
         latency_s=num(ev.latency_s), method=ev.method, reason=text(ev.reason) or None,
         dominant_hz=None, centroid_hz=None, band_energy_db=None, padded_slices=None, level_reference=None,
         n_slices=None, n_bands=None, levels_f32=None, slice_times_f64=None, band_centres_f64=None,
+        resonances_f64=None,
     )
     if f is not None:
         row.update(
             dominant_hz=num(f.dominant_hz), centroid_hz=num(f.centroid_hz), band_energy_db=num(f.band_energy_db),
             padded_slices=int(f.padded_slices), level_reference=f.reference, n_slices=int(f.levels_db.shape[0]),
             n_bands=int(f.levels_db.shape[1]), levels_f32=f32(f.levels_db), slice_times_f64=f64(f.slice_times_s),
-            band_centres_f64=f64(f.band_centres_hz),
+            band_centres_f64=f64(f.band_centres_hz), resonances_f64=resonances_blob(f.resonances),
         )
     return row
 
@@ -248,8 +250,10 @@ def _event_row(actuation_id, ev, f) -> dict:
 def insert_scores(conn, model_id, event, items) -> None:
     """Write scores of one event under one model: items [(actuation_id, ScoredEvent)] (analysis.store.codec)."""
     now = utc_now()
-    traj, fl = [], []
+    traj, fl, comps = [], [], []
     for actuation_id, scored in items:
+        comps.extend(dict(actuation_id=actuation_id, model_id=model_id, k=k, value=v)
+                     for k, v in enumerate(scored.resonance_components) if num(v) is not None)
         row = dict(scored.trajectory, actuation_id=actuation_id, event=event, model_id=model_id)
         rows = [dict(f, reason=text(f["reason"]), actuation_id=actuation_id, event=event, model_id=model_id,
                      created_at=now) for f in scored.flags]
@@ -260,6 +264,8 @@ def insert_scores(conn, model_id, event, items) -> None:
         conn.execute(trajectories.insert(), traj)
     if fl:
         conn.execute(flags.insert(), fl)
+    if comps:
+        conn.execute(resonance_components.insert(), comps)
 
 
 # ------------------------------------------------------------------------------------------------------ models

@@ -103,3 +103,31 @@ def test_calibration_makes_levels_read_re_20_micropascal(recording, tmp_path, ca
              - plain["features"]["dose_release"]["band_energy_db"])
     # RMS of the tone is 0.1/sqrt(2) FS, so 1 FS RMS = 94 - 20*log10(0.0707) = 117.0 dB SPL
     assert shift == pytest.approx(94.0 - 20 * np.log10(0.1 / np.sqrt(2)), abs=0.05)
+
+
+def test_resonance_features_follow_the_cavity_the_generator_built(small_scenario):
+    # The demo generator writes each actuation's Helmholtz frequency (from the cavity's geometry and the air's
+    # temperature) to its ground truth; the dose release's resonance in 900-1600 Hz (the shipped profile's range)
+    # must read it without bias and within a few per cent on each recording: the resonator is driven by noise,
+    # so one 0.4 s event reads it to about 1 % (SD), and a dented cavity (+6 %) reads about 6 % higher.
+    import pandas as pd
+
+    truth = pd.read_csv(small_scenario / "ground_truth.csv")
+    truth = pd.concat([truth[truth["condition"] == "normal"].iloc[::4], truth[truth["condition"] == "damaged_cavity"]])
+    rel = []
+    for r in truth.itertuples(index=False):
+        res = analyse_file(small_scenario / r.file).features["dose_release"].resonances
+        assert len(res) == 1 and (res[0].low_hz, res[0].high_hz) == (900.0, 1600.0)
+        assert np.isfinite(res[0].bandwidth_hz) and res[0].bandwidth_hz > 0
+        rel.append(res[0].frequency_hz / r.helmholtz_hz - 1.0)
+    rel = np.asarray(rel)
+    assert np.all(np.abs(rel) < 0.03), rel
+    assert abs(rel.mean()) < 0.005 and rel.std() < 0.015, (rel.mean(), rel.std())
+
+
+def test_resonances_are_in_the_json(recording, capsys):
+    assert main(["analyse", str(recording), "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    (res,) = out["features"]["dose_release"]["resonances"]
+    assert (res["low_hz"], res["high_hz"]) == (900.0, 1600.0) and 900.0 <= res["frequency_hz"] <= 1600.0
+    assert out["features"]["metering_click"]["resonances"] == []

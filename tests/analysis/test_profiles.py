@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import inspect
+import re
 import tomllib
 
 import pytest
@@ -76,6 +77,20 @@ def test_unknown_profile_name_lists_the_folders(tmp_path):
         (lambda d: d["audio"]["channels"].update(marker=0), r"two roles share one channel"),
         (lambda d: d["events"][1].update(bands={"fmax_hz": 60000.0}),
          r"key 'events\.dose_release\.bands\.fmax_hz': 60000 Hz is above the Nyquist frequency"),
+        (lambda d: d["events"][1].update(resonances_hz=[900.0, 1600.0]),
+         r"key 'events\.dose_release\.resonances_hz\[0\]': must be a pair of numbers \[low, high\] in Hz, got 900\.0"),
+        (lambda d: d["events"][1].update(resonances_hz="900-1600"),
+         r"key 'events\.dose_release\.resonances_hz': must be a list of \[low, high\] ranges in Hz"),
+        (lambda d: d["events"][1].update(resonances_hz=[[1600.0, 900.0]]),
+         r"resonances_hz\[0\]': must have 0 < low < high, got \[1600\.0, 900\.0\]"),
+        (lambda d: d["events"][1].update(resonances_hz=[[9000.0, 23000.0]]),
+         r"resonances_hz\[0\]': 23000 Hz is not below the Nyquist frequency of sample_rate_min_hz \(22050 Hz\)"),
+        # 20 ms slices resolve 50 Hz: a range needs two of those bins
+        (lambda d: d["events"][1].update(resonances_hz=[[1000.0, 1080.0]]),
+         r"resonances_hz\[0\]': is 80 Hz wide; the event's 0\.02 s slices resolve 50 Hz, so a range needs at least "
+         r"100 Hz"),
+        (lambda d: d["events"][1].update(resonances_hz=[[900.0, 1600.0], [1500.0, 2500.0]]),
+         r"resonances_hz\[1\]': overlaps an earlier range"),
     ],
 )
 def test_invalid_profiles_name_the_key_and_value(edit, match):
@@ -84,6 +99,16 @@ def test_invalid_profiles_name_the_key_and_value(edit, match):
     with pytest.raises(ProfileError, match=match) as info:
         parse_profile(data, source="site.toml")
     assert str(info.value).startswith("site.toml: ")
+
+
+def test_resonance_ranges_are_read_per_event_and_default_to_none():
+    prof = load_profile("demo-dpi")
+    assert prof.event("dose_release").resonances_hz == ((900.0, 1600.0),)
+    assert prof.event("metering_click").resonances_hz == ()
+    data = demo_data()
+    data["events"][0]["resonances_hz"] = [[2000, 3000], [5000.0, 7000]]
+    assert parse_profile(data, source="x").event("metering_click").resonances_hz == ((2000.0, 3000.0),
+                                                                                     (5000.0, 7000.0))
 
 
 def test_own_peak_clipping_keys_are_read_and_default_to_the_checks_defaults():
@@ -173,7 +198,7 @@ def _profile_text(name: str, *, version: int | None = None) -> str:
     text = DEMO.read_text().replace('name = "demo-dpi"', f'name = "{name}"')
     if version is None:
         return "\n".join(line for line in text.splitlines() if not line.startswith("version ="))
-    return text.replace("version = 1 ", f"version = {version} ")
+    return re.sub(r"(?m)^version = \d+ ", f"version = {version} ", text)
 
 
 def test_find_profile_takes_a_plain_name():

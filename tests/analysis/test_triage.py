@@ -1,6 +1,7 @@
 """The rules of analysis.triage: the suggested cause of a signalling cell or a flagged actuation, and states."""
 
 import pandas as pd
+import pytest
 
 from analysis.triage import actuation_state, lot_rigs_signalling, rig_lots_signalling, suggest_cause
 
@@ -213,3 +214,56 @@ def test_a_signal_without_an_event_is_about_the_rig_background():
     assert subject_words("dose_release") == "dose_release"
     for none in (None, "", float("nan")):  # an empty event as the store, pandas or a CSV gives it back
         assert subject_words(none) == "rig background"
+
+
+def _three_cells_depart(seed):
+    u = units_table(seed)
+    hit = (u["lot"] == "L10") & u["rig"].isin(["R1", "R2", "R3"])
+    u.loc[hit, "mean"] += 1.0  # every unit of three of the lot's four cells
+    return u
+
+
+def test_a_lot_needs_the_same_signature_on_its_rigs():
+    # Three of L10's four cells depart. When the same bands carry each departure (one change of the lot) it is
+    # the lot; when each cell's departure lies in other bands (three unrelated faults) it is not.
+    rng = np.random.default_rng(21)
+    shared = rng.normal(size=20)
+    same = {rig: shared + 0.3 * rng.normal(size=20) for rig in RIGS}
+    own = {rig: np.eye(20)[3 * i] * 2.0 + 0.05 * rng.normal(size=20) for i, rig in enumerate(RIGS)}
+    asked = []
+
+    def reader(table):
+        def signature_of(event, lot, rig):
+            asked.append((event, lot, rig))
+            return table[rig]
+        return signature_of
+
+    d = decide(_three_cells_depart(22), LIMITS, NO_FLAGS, reference_lots={"ev": REF}, signature_of=reader(same))
+    lots = [x for x in by(d, "lot") if x.cause == "lot"]
+    assert [x.lot for x in lots] == ["L10"]
+    assert set(lots[0].evidence["signature_agreement"]) == {"R1", "R2", "R3"}
+    assert min(lots[0].evidence["signature_agreement"].values()) > 0.8
+    assert "in the same bands on each" in evidence_words(lots[0])
+    assert {a[1] for a in asked} == {"L10"}  # only the cells of a lot that departs on several rigs are read
+    d = decide(_three_cells_depart(22), LIMITS, NO_FLAGS, reference_lots={"ev": REF}, signature_of=reader(own))
+    assert not [x for x in by(d, "lot") if x.cause == "lot"]
+    assert all(x.cause != "lot" for x in by(d, "cell") if x.lot == "L10")
+    # without signatures (a store scored before they were kept) the rule is the departure alone
+    d = decide(_three_cells_depart(22), LIMITS, NO_FLAGS, reference_lots={"ev": REF},
+               signature_of=lambda e, lot, rig: None)
+    assert [x.lot for x in by(d, "lot") if x.cause == "lot"] == ["L10"]
+
+
+def test_signature_agreement_is_each_cosine_against_the_mean_of_the_others():
+    from analysis.triage import SIGNATURE_AGREEMENT, agreeing_signatures
+
+    a, b, c = np.array([1.0, 0.0, 0.0]), np.array([2.0, 0.2, 0.0]), np.array([0.0, 0.0, 3.0])
+    keep, cos = agreeing_signatures({"R1": a, "R2": b, "R3": c, "R4": None})
+    # by hand: R3 against the mean of the unit vectors of R1 and R2, which has no third component -> 0
+    ub = b / np.linalg.norm(b)
+    rest = (a + ub) / 2
+    assert cos["R1"] == pytest.approx(a @ ((ub + c / 3) / 2) / np.linalg.norm((ub + c / 3) / 2))
+    assert cos["R3"] == pytest.approx(0.0) and cos["R3"] < SIGNATURE_AGREEMENT
+    assert (c / 3) @ rest == pytest.approx(0.0)
+    assert keep == ["R1", "R2", "R4"]  # R4 has no signature: nothing speaks against it
+    assert agreeing_signatures({"R1": a, "R2": None}) == (["R1", "R2"], {})

@@ -12,7 +12,7 @@ import pandas as pd
 from sqlalchemy import and_, exists, func, select
 
 from .. import schema as db
-from ..codec import event_arrays, from_f32, text
+from ..codec import event_arrays, from_f32, resonances_from_blob, text
 from ..errors import StoreError
 from ..types import Trajectory
 from ._base import active_model_ids, counted_flag, df, model_flag, placed_full, text_by_id
@@ -210,19 +210,20 @@ def actuation_detail(conn, actuation_id: int) -> dict | None:
 
 
 BAND_LEVEL_COLUMNS = ["actuation_id", "file", "lot", "rig", "unit", "passed_qc", "levels", "slice_times_s",
-                      "band_centres_hz"]
+                      "band_centres_hz", "resonances"]
 
 
 def band_levels(conn, event: str, *, profile: str | None = None, lots=None, actuation_ids=None,
                 passed_qc_only: bool = True) -> pd.DataFrame:
     """One row per actuation (of ``profile``, in ``lots``, or the given ids) with the event's band levels:
     actuation_id, file, lot, rig, unit, passed_qc, levels ((n_slices, n_bands) float32 in the event's level unit, or
-    None when the event has none), slice_times_s (s from the onset), band_centres_hz (Hz)."""
+    None when the event has none), slice_times_s (s from the onset), band_centres_hz (Hz), resonances (the
+    event's analysis.signal.resonance.Resonance tuple, empty when its profile names none)."""
     a = db.actuations
     stmt = (select(a.c.id.label("actuation_id"), db.recordings.c.original_name.label("file"),
                    db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"), db.units.c.name.label("unit"),
                    a.c.passed_qc, db.events.c.levels_f32, db.events.c.n_slices, db.events.c.n_bands,
-                   db.events.c.slice_times_f64, db.events.c.band_centres_f64)
+                   db.events.c.slice_times_f64, db.events.c.band_centres_f64, db.events.c.resonances_f64)
             .select_from(placed_full().outerjoin(db.events, and_(db.events.c.actuation_id == a.c.id,
                                                               db.events.c.name == event)))
             .order_by(a.c.id))
@@ -239,7 +240,8 @@ def band_levels(conn, event: str, *, profile: str | None = None, lots=None, actu
         arrays = event_arrays(r)
         levels, times, centres = arrays if arrays is not None else (None, None, None)
         out.append(dict(actuation_id=r.actuation_id, file=r.file, lot=r.lot, rig=r.rig, unit=r.unit,
-                        passed_qc=bool(r.passed_qc), levels=levels, slice_times_s=times, band_centres_hz=centres))
+                        passed_qc=bool(r.passed_qc), levels=levels, slice_times_s=times, band_centres_hz=centres,
+                        resonances=resonances_from_blob(r.resonances_f64)))
     return pd.DataFrame(out, columns=BAND_LEVEL_COLUMNS)
 
 
@@ -321,11 +323,13 @@ def trajectories(conn, event: str, *, actuation_ids=(), lots_=(), profile: str |
 
 def unscored(conn, profile: str, event: str, model_id: int, *, limit: int) -> list:
     """Up to ``limit`` actuations of ``profile`` (by id) with no scores of ``event`` under ``model_id``: rows with
-    actuation_id, levels (decoded, or None), found, reason (why the event has no levels)."""
+    actuation_id, levels (decoded, or None), resonances (Resonance tuple), found, reason (why the event has no
+    levels)."""
     a, t = db.actuations, db.trajectories
     rows = conn.execute(
         select(a.c.id.label("actuation_id"), db.events.c.levels_f32, db.events.c.n_slices, db.events.c.n_bands,
-               db.events.c.slice_times_f64, db.events.c.band_centres_f64, db.events.c.found, db.events.c.reason)
+               db.events.c.slice_times_f64, db.events.c.band_centres_f64, db.events.c.found, db.events.c.reason,
+               db.events.c.resonances_f64)
         .select_from(a.outerjoin(db.events, and_(db.events.c.actuation_id == a.c.id, db.events.c.name == event)))
         .where(a.c.profile == profile)
         .where(~exists().where(and_(t.c.actuation_id == a.c.id, t.c.event == event, t.c.model_id == model_id)))
@@ -335,7 +339,8 @@ def unscored(conn, profile: str, event: str, model_id: int, *, limit: int) -> li
     for r in rows:
         arrays = event_arrays(r)
         out.append(dict(actuation_id=r.actuation_id, levels=arrays[0] if arrays else None,
-                        n_slices=r.n_slices, n_bands=r.n_bands, found=r.found, reason=r.reason))
+                        resonances=resonances_from_blob(r.resonances_f64), n_slices=r.n_slices, n_bands=r.n_bands,
+                        found=r.found, reason=r.reason))
     return out
 
 

@@ -67,24 +67,31 @@ def actuation_causes(conn, actuation_ids=None) -> pd.Series:
 
 def units_table(conn, profile: str, event: str, *, lot: str | None = None, rig: str | None = None,
                 statistic: str = "event_spe_ratio") -> pd.DataFrame:
-    """Each unit of a lot or rig: its mean of ``statistic`` (geometric mean of the ratio) over its actuations that
-    passed QC, n, the limit for that n (from the active model's unit limits), whether it signals, and its lot,
-    rig and site. Empty when the event has no active model or its model holds no unit limits."""
-    from ..signals import model_levels, unit_summaries
+    """Each unit of a lot or rig: its mean of ``statistic`` (geometric mean of the ratio; for the resonance block
+    the T² of its mean features) over its actuations that passed QC, n, the limit for that n (from the active
+    model's unit limits), whether it signals, and its lot, rig and site. Empty when the event has no active model
+    or its model holds no unit limits."""
+    from analysis.monitor.levels import BLOCK_STATISTIC
+
+    from ..signals import block_summaries, model_levels, unit_summaries
 
     limits, refs, ids = model_levels(conn, profile)
     cols = ["unit", "lot", "rig", "site", "n", "value", "limit", "signal", "reference"]
     if event not in ids or statistic not in (limits.get(event) or {}):
         return pd.DataFrame(columns=cols)
-    u = unit_summaries(conn, profile, {event: ids[event]})
+    block = statistic == BLOCK_STATISTIC
+    u = (block_summaries(conn, profile, {event: ids[event]}, limits) if block
+         else unit_summaries(conn, profile, {event: ids[event]}))
     u = u[(u["statistic"] == statistic) & (u["n"] > 0)]
     if lot is not None:
         u = u[u["lot"] == lot]
     if rig is not None:
         u = u[u["rig"] == rig]
     lim = limits[event][statistic]
-    out = u.assign(value=np.exp(u["mean"].astype(float)),
-                   limit=np.exp(np.asarray(lim.ucl(u["n"].to_numpy(dtype=float)), dtype=float)) if len(u) else [])
+    ucl = np.asarray(lim.ucl(u["n"].to_numpy(dtype=float)), dtype=float) if len(u) else np.zeros(0)
+    # the resonance block's unit value is a T² already; the others are means of logs of ratios
+    out = u.assign(value=u["mean"].astype(float) if block else np.exp(u["mean"].astype(float)),
+                   limit=ucl if block else np.exp(ucl))
     out["signal"] = out["value"] > out["limit"]
     out["reference"] = out["lot"].isin(set(refs.get(event, ())))
     return out[cols].sort_values(["lot", "rig", "unit"]).reset_index(drop=True)

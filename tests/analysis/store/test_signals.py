@@ -113,6 +113,32 @@ def test_units_table_gives_each_unit_against_its_limit(small_store, small_scenar
     assert none.empty
 
 
+def test_damaged_cavity_units_stand_out_on_the_resonance_block(small_store, small_scenario):
+    # The small scenario dents one unit's cavity by +6 % and another's by +2 % (ground truth); the third-octave
+    # bands cannot see either. At the unit level the resonance block's T² of the unit's mean features: the
+    # +6 % unit signals with the unit as its cause and the evidence names the frequency's rise; both damaged
+    # units lie above every normal new unit (the +2 % one, about 3 unit SDs of the device's natural spread, stays
+    # below the limit that 12 reference units allow, so it does not signal).
+    url, files = small_store
+    truth = pd.read_csv(small_scenario / "ground_truth.csv")
+    dented = truth[truth["condition"] == "damaged_cavity"].groupby("unit")["severity"].first()
+    big, small = dented.idxmax(), dented.idxmin()
+    assert (dented[big], dented[small]) == (6.0, 2.0)
+    with Store.open(url, files_dir=files) as store, store.read() as conn:
+        sig = queries.signals(conn, levels=("unit",))
+        units = queries.units_table(conn, "demo-dpi", "dose_release", statistic="resonance_t2")
+    res = sig[sig["statistic"] == "resonance_t2"]
+    assert list(res["unit"]) == [big], res[["unit", "value", "limit"]]
+    row = res.iloc[0]
+    assert row["cause"] == "unit" and row["value"] > row["limit"]
+    pct = float(row["evidence"].split("peak frequency in 900-1600 Hz ")[1].split(" %")[0])
+    assert 4.0 < pct < 8.0, row["evidence"]  # +6 % and the unit's own place in the natural spread
+    new = units[~units["reference"]].set_index("unit")
+    normal = new.drop(index=[big, small])
+    assert new.at[small, "value"] > normal["value"].max() and new.at[big, "signal"]
+    assert not normal["signal"].any()
+
+
 def test_validate_reports_in_json_and_html(small_store, small_scenario, tmp_path):
     url, _ = small_store
     html = tmp_path / "v.html"
