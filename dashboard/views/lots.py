@@ -161,17 +161,25 @@ def register(app, ctx):
         return lot_detail(ctx.store, selected, profile=profile, event=event)
 
 
-def units_block(units, lot: str, rig: str | None):
-    """Each unit of the lot (on the rig) against its limit: the mean event residual over its actuations."""
+def units_block(units, lot: str, rig: str | None, resonance=None):
+    """Each unit of the lot (on the rig) against its limits: the mean event residual over its actuations and, for
+    an event whose model has a resonance block, the T² of its mean resonance features."""
     if units is None or not len(units):
         return html.P("No unit limits for this event (build a reference model to get them).", className="muted",
                       id="lots-units")
+    cols = [("unit", "Unit"), ("rig", "Rig"), ("n", "Actuations"), ("value", "Mean", fmt), ("limit", "Limit", fmt)]
+    if resonance is not None and len(resonance):
+        res = resonance[["unit", "value", "limit", "signal"]].rename(
+            columns={"value": "res_value", "limit": "res_limit", "signal": "res_signal"})
+        units = units.merge(res, on="unit", how="left")
+        units["signal"] = units["signal"].astype(bool) | units["res_signal"].fillna(False).astype(bool)
+        cols += [("res_value", "Resonance T²", fmt), ("res_limit", "Its limit", fmt)]
     units = units.assign(state=["beyond its limit" if s else "within" for s in units["signal"]])
     return html.Div([
         html.H4(f"Units of lot {short(lot)}" + (f" on {short(rig)}" if rig else "")
-                + ": mean event residual (× reference median) against each unit's limit"),
-        table(units, [("unit", "Unit"), ("rig", "Rig"), ("n", "Actuations"), ("value", "Mean", fmt),
-                      ("limit", "Limit", fmt), ("state", "State")], id="lots-units",
+                + ": mean event residual (× reference median)"
+                + (" and resonance T²" if len(cols) > 5 else "") + " against each unit's limit"),
+        table(units, cols + [("state", "State")], id="lots-units",
               row_class=lambda r: "row-flagged" if r["signal"] else None),
     ])
 
@@ -184,6 +192,8 @@ def lot_detail(store, selected, *, profile=None, event=None):
     with store.read() as conn:
         df = queries.lot_actuations(conn, lot, rig=rig_filter)
         units = queries.units_table(conn, profile, event, lot=lot, rig=rig_filter) if profile and event else None
+        resonance = (queries.units_table(conn, profile, event, lot=lot, rig=rig_filter, statistic="resonance_t2")
+                     if profile and event else None)
     if df.empty:
         return html.P(f"No actuations of lot {short(lot)}.")
     df["state"] = [actuation_state(passed_qc=bool(p), n_model_flags=int(n), n_qc_flags=0)
@@ -193,7 +203,7 @@ def lot_detail(store, selected, *, profile=None, event=None):
                 + f": {len(df)} actuations"),
         html.P(dcc.Link("Show this lot's score trajectories", href=f"/trajectories?lots={quote(lot)}",
                         id="lots-detail-trajectories")),
-        units_block(units, lot, rig_filter),
+        units_block(units, lot, rig_filter, resonance),
         table(df, [("actuation_id", "Actuation"), ("unit", "Unit"), ("actuation", "No."), ("rig", "Rig"),
                    ("recorded_at", "Recorded"), ("state", "State"), ("n_flags", "Flags")],
               id="lots-detail-table", link=("actuation_id", lambda r: f"/actuation/{r['actuation_id']}"),

@@ -165,6 +165,21 @@ def test_lots_rings_the_stored_signals_and_lists_units(ctx):
     assert units is not None and len(units.children[1].children) >= 1
 
 
+def test_the_units_list_shows_the_resonance_block_and_rings_the_dented_unit(ctx):
+    # The small scenario dents L2605-01's cavity by +6 %: its event residual stays within its limit, its resonance
+    # T² does not, and the Units list reached from the lot says so on its row.
+    detail = lots.lot_detail(ctx.store, "L2605|all rigs", profile="demo-dpi", event="dose_release")
+    tbl = _find(detail, "lots-units")
+    head = [th.children for th in tbl.children[0].children.children]
+    assert "Resonance T²" in head and "Its limit" in head
+    rows = {tr.children[0].children: tr for tr in tbl.children[1].children}
+    assert rows["L2605-01"].className == "row-flagged"
+    col = head.index("Resonance T²")
+    value, limit = (float(rows["L2605-01"].children[i].children) for i in (col, col + 1))
+    assert value > limit
+    assert all(tr.className is None for u, tr in rows.items() if u != "L2605-01")
+
+
 def test_rigs_shows_each_rig_background_over_its_lots(ctx):
     cells = rigs.fingerprint_data(ctx.store, "demo-dpi")
     assert len(cells) and set(cells.columns) >= {"lot", "rig", "median", "limit", "departs"}

@@ -117,3 +117,19 @@ def test_bad_parameters_say_what_was_wrong(kw, match):
     args.update(kw)
     with pytest.raises(ParameterError, match=match):
         resonances(damped_sine(1183.0, 0.03), **args)
+
+
+def test_the_zoomed_bins_are_those_of_the_zero_padded_transform():
+    # The chirp z-transform of a range must give the same bins as the full zero-padded rfft (scipy.fft, through
+    # stft_power with its "spectrum" scaling), so the features are those of the padded spectrum, only cheaper.
+    from analysis.signal.resonance import zoom_power
+    from analysis.signal.spectra import frames, stft_power, window_values
+
+    rng = np.random.default_rng(8)
+    x = rng.standard_normal(4000)
+    starts = np.array([0, 480, 960, 3500])  # the last frame runs past the end and reads zeros
+    n, n_fft = 960, 7680
+    full = stft_power(x, sample_rate_hz=FS, starts=starts, n_window=n, scaling="spectrum", n_fft=n_fft)
+    w = window_values("hann", n)
+    zoom = zoom_power(frames(x, starts, n) * w, first_bin=140, n_bins=120, n_fft=n_fft) * 2.0 / np.sum(w) ** 2
+    np.testing.assert_allclose(zoom, full[:, 140:260], rtol=1e-9, atol=1e-12 * full.max())
