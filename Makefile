@@ -23,7 +23,7 @@ install: $(STAMP)
 
 demo: $(STAMP)
 	$(BIN)/harken demo --out $(DEMO_DIR)
-	$(BIN)/harken serve --store $(DEMO_DIR)/harken.db --host 127.0.0.1 --port 8050
+	$(BIN)/harken serve --store $(DEMO_DIR)/harken.db --host 127.0.0.1 --port 8050 --open-reading
 
 # The linter first (configured in pyproject.toml); then pytest, which exits 5 when it collected no test: that is
 # a failure here, not a pass.

@@ -23,6 +23,7 @@ from analysis.cautions import CAUTIONS
 from analysis.store import Store
 
 from . import audio as audio_route
+from . import auth
 from .safety import MAX_ID, guarded
 from .urlstate import parse_query
 from .views import VIEWS, view_for_path
@@ -63,12 +64,17 @@ def _secret_key(cache_dir: Path, given: str | None) -> str:
 
 
 def create_app(store_url=None, *, cache_dir=None, meeting: bool = False, refresh_s: float = 30.0,
-               secret_key: str | None = None, title: str = "Harken") -> Dash:
+               secret_key: str | None = None, title: str = "Harken", open_reading: bool = False,
+               idle_minutes: float = 30.0, trusted_header: str | None = None, trusted_proxies=(),
+               secure_cookies: bool = False) -> Dash:
     """A Dash app showing the results store at ``store_url`` (a SQLAlchemy URL or a SQLite file path).
 
     cache_dir: the folder for the background-job cache and the drill-down cache, shared by all server
     processes (default: ``<store>-dashboard-cache`` beside a SQLite store, else in the working folder).
     meeting: start in meeting mode (large, high-contrast). refresh_s: how often Today refreshes itself.
+    Sign-in (dashboard.auth): open_reading lets anyone read without signing in (writing always needs a
+    signed-in person with the role); idle_minutes ends an idle session; trusted_header (with trusted_proxies,
+    the addresses it is accepted from) takes the user name from a reverse proxy; secure_cookies for HTTPS.
     """
     store = Store.open(store_url, create=False)
     cache_dir = Path(cache_dir) if cache_dir is not None else store.files_dir / f"{store.stem}-dashboard-cache"
@@ -84,7 +90,10 @@ def create_app(store_url=None, *, cache_dir=None, meeting: bool = False, refresh
     )
     app.server.secret_key = _secret_key(cache_dir, secret_key)
     app.server.config["HARKEN_CONTEXT"] = ctx
-    app.layout = _shell(ctx)
+    auth.install(app, ctx, auth.AuthSettings(
+        open_reading=bool(open_reading), idle_minutes=float(idle_minutes), trusted_header=trusted_header or None,
+        trusted_proxies=tuple(trusted_proxies or ()), secure_cookies=bool(secure_cookies)))
+    app.layout = lambda: _shell(ctx)  # built per page load: it shows who is signed in
     _register_shell(app, ctx)
     for view in VIEWS.values():
         view.register(app, ctx)
@@ -158,12 +167,32 @@ def _shell(ctx: AppContext):
             html.Nav(links, className="app-nav"),
             dcc.Checklist(id="app-meeting-switch", options=[{"label": " Meeting mode", "value": "on"}],
                           value=["on"] if ctx.meeting else [], className="app-meeting-switch"),
+            _user_area(),
         ]),
+        dcc.Store(id="app-user", data=auth.signed_in_name()),
         html.Main(id="app-page", className="app-page"),
         html.Footer(className="app-footer", children=[
             html.Span(CAUTIONS[0] + " " + CAUTIONS[1] + " "),
             dcc.Link("More in About.", href="/about"),
         ]),
+    ])
+
+
+ROLE_WORDS = {"viewer": "viewer", "technician": "technician", "method_owner": "method owner", "admin": "admin"}
+
+
+def _user_area():
+    """Who is signed in, with a sign-out button (a plain form POST with the session's token), or a sign-in link."""
+    user = auth.signed_in()
+    if user is None:
+        return html.Div(className="app-user", children=[
+            html.Span("Reading without signing in", className="muted"), " ",
+            html.A("Sign in", href="/signin", id="app-signin")])
+    return html.Div(className="app-user", children=[
+        html.Span(f"{user.full_name} ({ROLE_WORDS.get(user.role, user.role)})", id="app-user-name"),
+        html.Form(action="/signout", method="POST", className="app-signout", children=[
+            dcc.Input(type="hidden", name="csrf", value=auth.csrf_token(), id="app-signout-token"),
+            html.Button("Sign out", type="submit", id="app-signout", className="button")]),
     ])
 
 

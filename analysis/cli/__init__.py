@@ -13,12 +13,12 @@ import argparse
 import sys
 
 from ..errors import AnalysisError
-from . import analyse, bench, check, demo, demo_data, export, model, reference, serve, validate, worker
+from . import analyse, audit, bench, check, demo, demo_data, export, model, reference, serve, user, validate, worker
 
 __all__ = ["main", "build_parser", "EXIT_BAD_INPUT"]
 
 EXIT_BAD_INPUT = 1
-GROUPS = (analyse, demo_data, model, worker, reference, export, check, validate, serve, demo, bench)
+GROUPS = (analyse, demo_data, model, worker, reference, export, check, validate, serve, demo, bench, user, audit)
 
 
 def build_parser() -> argparse.ArgumentParser:

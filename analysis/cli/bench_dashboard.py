@@ -69,7 +69,7 @@ def run_bench(*, sizes=(10_000, 100_000), repeat: int = 3, echo=print) -> dict:
             t0 = time.perf_counter()
             fill_synthetic_store(url, n)
             echo(f"filled a synthetic store with {n:,} actuations in {time.perf_counter() - t0:.1f} s")
-            app = create_app(url, cache_dir=Path(tmp) / f"cache-{n}")
+            app = create_app(url, cache_dir=Path(tmp) / f"cache-{n}", open_reading=True)
             results[n] = time_views(app.harken, repeat=repeat)
             app.harken.store.close()
             for view, s in results[n].items():

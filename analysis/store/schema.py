@@ -289,7 +289,21 @@ signals = Table(
     Index("ix_signals_actuation", "actuation_id"),
 )
 
-#: Append-only: the store's code only ever inserts here.
+#: People who sign in, and their roles (analysis.store.users). Never deleted: a disabled user stays attributable.
+users = Table(
+    "users", metadata,
+    Column("id", Integer, primary_key=True),
+    Column("user_name", Text, nullable=False),
+    Column("full_name", Text, nullable=False),
+    Column("role", String(16), nullable=False),  # viewer, technician, method_owner, admin
+    Column("state", String(16), nullable=False),  # active, disabled
+    Column("password_hash", Text),  # Argon2id (argon2-cffi); None: signs in only through a trusted header
+    Column("created_at", DateTime, nullable=False),
+    Column("created_by", Text, nullable=False),
+    UniqueConstraint("user_name", name="uq_users_name"),
+)
+
+#: Append-only: the store's code only ever inserts here, through analysis.store.audit (a hash chain).
 audit_log = Table(
     "audit_log", metadata,
     Column("id", Integer, primary_key=True),
@@ -298,6 +312,8 @@ audit_log = Table(
     Column("action", String(64), nullable=False),
     Column("target", Text),
     Column("detail", Text),  # JSON
+    Column("prev_sha256", String(64)),  # the hash chain (analysis.store.audit)
+    Column("row_sha256", String(64)),
     Index("ix_audit_at", "at"),
 )
 

@@ -14,12 +14,12 @@ from datetime import UTC, timedelta
 from sqlalchemy import and_, bindparam, func, select
 from sqlalchemy.dialects import postgresql, sqlite
 
+from . import audit as _audit
 from .codec import f32, f64, num, resonances_blob, text
 from .errors import StoreError
 from .integrity import flags_digest, model_digest, qc_digest
 from .schema import (
     actuations,
-    audit_log,
     backgrounds,
     events,
     flags,
@@ -326,7 +326,5 @@ def add_verdict(conn, flag_id, *, person, verdict, note, where) -> int:
 
 
 def audit(conn, *, person, action, target="", detail=None):
-    conn.execute(audit_log.insert().values(
-        at=utc_now(), person=text(person), action=action, target=text(target),
-        detail=text(json.dumps(detail or {}, ensure_ascii=False, default=str)),
-    ))
+    """One row of the hash-chained audit trail, in the caller's transaction (analysis.store.audit)."""
+    _audit.append(conn, person=person, action=action, target=target, detail=detail)

@@ -11,6 +11,7 @@ from dash import Input, Output, State, dcc, html
 from analysis.profiles import is_profile_name
 from analysis.store import queries
 
+from .. import auth
 from ..safety import guarded
 from .common import card, name_options, table, view_header
 
@@ -75,6 +76,7 @@ def layout(ctx, q: dict):
              html.P("Choose the lots that make the reference set. Building fits one model per chosen event, makes "
                     "it the active version (the old one is kept, retired) and scores every stored actuation with it. "
                     "It is recorded in the store's audit log under your name.", className="muted"),
+             _who_builds(),
              html.Div(className="filter-bar", children=[
                  html.Label([html.Span("Device profile", className="filter-label"), dcc.Dropdown(
                      id="references-profile", options=name_options(ch["profiles"]), value=profile,
@@ -82,22 +84,39 @@ def layout(ctx, q: dict):
                      className="filter"),
                  html.Label([html.Span("Events", className="filter-label"), dcc.Checklist(
                      id="references-events", options=events, value=events, inline=True)], className="filter"),
-                 html.Label([html.Span("Your name", className="filter-label"), dcc.Input(
-                     id="references-person", value="", placeholder="who builds it", className="text-input")],
-                     className="filter"),
              ]),
              html.Label([html.Span("Reference lots", className="filter-label"), dcc.Checklist(
                  id="references-lots", options=lot_options,
                  value=[lot for lot in current if lot in {o["value"] for o in lot_options}], inline=True,
                  className="lot-checklist")]),
+             # the controls only for a method owner; the server's gate refuses the callback to anyone else anyway
              html.Div(className="build-row", children=[
                  html.Button("Build reference", id="references-build", className="button-primary"),
                  html.Button("Cancel", id="references-cancel", className="button"),
                  html.Progress(id="references-progress", value="0", max="1", className="progress"),
                  html.Span(id="references-status", className="muted"),
-             ])),
+             ]) if can_build() else html.Span(id="references-status")),
         dcc.Store(id="references-load-id", data=uuid.uuid4().hex),
     ])
+
+
+def can_build() -> bool:
+    """Whether the signed-in person may build a reference (the method owner's role)."""
+    user = auth.signed_in()
+    return user is not None and auth.store_users.role_at_least(user.role, "method_owner")
+
+
+def _who_builds():
+    """Who a build will be recorded under: the signed-in person, who needs the method owner's role."""
+    user = auth.signed_in()
+    if user is None:
+        return html.P("Sign in as a method owner to build a reference: a build is recorded under the signed-in "
+                      "person.", className="notice", id="references-who")
+    if not auth.store_users.role_at_least(user.role, "method_owner"):
+        return html.P(f"You are signed in as {user.user_name} ({user.role}): building a reference needs the "
+                      "method owner's role.", className="notice", id="references-who")
+    return html.P(f"Builds are recorded under {user.user_name} ({user.full_name}).", className="muted",
+                  id="references-who")
 
 
 def _f(info, name):
@@ -118,9 +137,9 @@ def check_build(profile, lots_, events_, person) -> str | None:
     """What is missing or not allowed before a build can start (None when nothing). The profile is a name, never
     a path (analysis.profiles.find_profile looks it up in the profile folders)."""
     if not isinstance(person, str) or not person.strip():
-        return "Give your name: a reference build is recorded under it."
+        return "Sign in as a method owner first: a reference build is recorded under the signed-in person."
     if len(person) > 200 or not person.isprintable():
-        return "Give your name as up to 200 printable characters."
+        return "The signed-in name is not a user name."
     if not profile:
         return "Choose a device profile."
     if not is_profile_name(profile):
@@ -139,12 +158,15 @@ def check_build(profile, lots_, events_, person) -> str | None:
 def register(app, ctx):
     store_url = ctx.extra.get("store_url")
     files_dir = ctx.store.files_dir
+    # The server's gate (dashboard.auth) lets this callback's requests through only for a signed-in method owner
+    # whose own name is the app-user value it carries; the job then records the build under that name.
+    auth.require("references-models", "method_owner")
 
     @app.callback(
         Output("references-models", "children"), Output("references-status", "children"),
         Input("references-build", "n_clicks"),
         State("references-profile", "value"), State("references-lots", "value"), State("references-events", "value"),
-        State("references-person", "value"), State("references-load-id", "data"),
+        State("app-user", "data"), State("references-load-id", "data"),
         background=True, prevent_initial_call=True,
         running=[(Output("references-build", "disabled"), True, False),
                  (Output("references-cancel", "disabled"), False, True)],

@@ -10,7 +10,7 @@ def app(filled_store, tmp_path):
     from dashboard import create_app
 
     url, _ = filled_store
-    return create_app(url, cache_dir=tmp_path / "cache")
+    return create_app(url, cache_dir=tmp_path / "cache", open_reading=True)
 
 
 @pytest.fixture

@@ -39,13 +39,13 @@ def test_factory_refuses_a_missing_store(tmp_path):
     from analysis.store import StoreError
 
     with pytest.raises(StoreError, match="does not exist"):
-        create_app(f"sqlite:///{tmp_path / 'none.db'}", cache_dir=tmp_path / "c")
+        create_app(f"sqlite:///{tmp_path / 'none.db'}", cache_dir=tmp_path / "c", open_reading=True)
 
 
 def test_secret_key_is_shared_through_the_cache_folder(filled_store, tmp_path):
     url, _ = filled_store
-    a = create_app(url, cache_dir=tmp_path / "c")
-    b = create_app(url, cache_dir=tmp_path / "c")
+    a = create_app(url, cache_dir=tmp_path / "c", open_reading=True)
+    b = create_app(url, cache_dir=tmp_path / "c", open_reading=True)
     assert a.server.secret_key == b.server.secret_key
 
 
@@ -201,7 +201,7 @@ def test_today_shows_quarantined_recordings(store_copy, tmp_path):
         c = s.claim("f" * 64, "broken.flac", 10, worker="t", claim_timeout_s=60)
         s.commit_quarantine(c.recording_id, worker="t", reason="not a readable audio file (truncated)",
                             quarantine_path=str(tmp_path / "broken.flac"), sidecar_json='{"rig": "NF-R1"}')
-    app = create_app(store_copy, cache_dir=tmp_path / "c")
+    app = create_app(store_copy, cache_dir=tmp_path / "c", open_reading=True)
     data = today.today_data(app.harken.store)
     assert data["counts"]["quarantined"] == 1
     q = data["quarantine"].iloc[0]
@@ -270,7 +270,7 @@ def test_reference_build_runs_as_a_job_function(store_copy, tmp_path):
 def test_cached_aggregates_follow_the_store(store_copy, tmp_path):
     from analysis.store.schema import flags, utc_now
 
-    app = create_app(store_copy, cache_dir=tmp_path / "c")
+    app = create_app(store_copy, cache_dir=tmp_path / "c", open_reading=True)
     ctx = app.harken
     args = (ctx.store, "t2_ratio", "metering_click", Filters())
     first, _, _ = lots.lots_chart_data(*args, cache=ctx.drill_cache)

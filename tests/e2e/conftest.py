@@ -33,7 +33,7 @@ def _serving(store_url, cache_dir):
 
     from dashboard import create_app
 
-    app = create_app(store_url, cache_dir=cache_dir, refresh_s=3600)
+    app = create_app(store_url, cache_dir=cache_dir, refresh_s=3600, open_reading=True)
     srv = make_server("127.0.0.1", 0, app.server, threaded=True)
     thread = threading.Thread(target=srv.serve_forever, daemon=True)
     thread.start()
@@ -90,8 +90,28 @@ def artifacts():
     return ARTIFACTS
 
 
+PASSWORD = "e2e password of the tests"
+PEOPLE = (("vic", "viewer", "Vic Viewer"), ("tom", "technician", "Tom Tech"), ("ada", "method_owner", "Ada Tester"))
+
+
 @pytest.fixture
 def writable_server(store_copy, tmp_path):  # noqa: F811
-    """The dashboard on a private copy of the filled store (a test here may build references)."""
+    """The dashboard on a private copy of the filled store (a test here may build references), with a viewer
+    (vic), a technician (tom) and a method owner (ada), all with PASSWORD."""
+    from analysis.store import Store
+    from analysis.store.users import add_user
+
+    with Store.open(store_copy, create=False) as store, store.write() as conn:
+        for name, role, full in PEOPLE:
+            add_user(conn, name, role=role, full_name=full, password=PASSWORD, by="e2e")
     with _serving(store_copy, tmp_path / "cache") as base:
         yield base
+
+
+def sign_in(page, base: str, name: str, password: str = PASSWORD, next_path: str = "/"):
+    """Sign in through the sign-in page; returns the page after the redirect."""
+    page.goto(f"{base}/signin?next={next_path}")
+    page.fill("#signin-user", name)
+    page.fill("#signin-password", password)
+    page.click("#signin-submit")
+    return page

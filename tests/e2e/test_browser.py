@@ -10,6 +10,8 @@ import re
 import pytest
 import soundfile as sf
 
+from tests.e2e.conftest import sign_in
+
 VIEWS = [("today", "/"), ("lots", "/lots"), ("trajectories", "/trajectories"), ("rigs", "/rigs"),
          ("references", "/references"), ("about", "/about"), ("actuation", "/actuation/104")]
 
@@ -155,18 +157,22 @@ def test_meeting_mode_from_the_url_and_the_switch(page, server, artifacts):
 
 
 def test_reference_build_runs_in_the_background_with_progress(page, writable_server, artifacts):
+    # reading without signing in shows no build controls
     page.goto(writable_server + "/references")
     _settle(page)
-    page.click("#references-build")
-    page.wait_for_selector("#references-status:has-text('Give your name')")
-    page.fill("#references-person", "Ada Tester")
+    page.wait_for_selector("#references-who:has-text('Sign in as a method owner')")
+    assert page.locator("#references-build").count() == 0
+    sign_in(page, writable_server, "ada", next_path="/references")
+    _settle(page)
+    page.wait_for_selector("#app-user-name:has-text('Ada Tester (method owner)')")
+    page.wait_for_selector("#references-who:has-text('recorded under ada')")
     page.uncheck("#references-events input[value=dose_release]")
     page.click("#references-build")
     page.wait_for_selector("#references-status:has-text('Built:')", timeout=120_000)
     page.screenshot(path=str(artifacts / "references-built.png"), full_page=True)
     rows = page.locator("#references-table tbody tr")
     texts = [rows.nth(i).inner_text() for i in range(rows.count())]
-    assert any("metering_click" in t and "active" in t and "Ada Tester" in t for t in texts)
+    assert any("metering_click" in t and "active" in t and "ada" in t for t in texts)
     assert any("metering_click" in t and "retired" in t for t in texts)
     assert page.eval_on_selector("#references-progress", "p => p.value") == 1
     assert page.errors == []

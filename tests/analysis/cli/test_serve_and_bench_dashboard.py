@@ -27,7 +27,7 @@ def test_synthetic_store_and_view_timings(tmp_path):
 
     url = f"sqlite:///{tmp_path / 'b.db'}"
     fill_synthetic_store(url, 400, n_lots=5)
-    app = create_app(url, cache_dir=tmp_path / "c")
+    app = create_app(url, cache_dir=tmp_path / "c", open_reading=True)
     with app.harken.store.read() as conn:
         pts = queries.lot_points(conn, "event_spe_ratio", "dose_release", Filters(profile="bench"))
     assert pts["n_all"].sum() == 400 and pts["lot"].nunique() == 5
@@ -35,10 +35,12 @@ def test_synthetic_store_and_view_timings(tmp_path):
     assert set(t) == {"lots", "rigs", "today"}  # the bench times every view it promises (times are not asserted)
 
 
-def test_the_network_warning_is_given_for_every_host_but_this_machine():
-    assert serve_cmd.network_warning("127.0.0.1", 8050) is None and serve_cmd.network_warning("::1", 1) is None
-    words = serve_cmd.network_warning("0.0.0.0", 8050)
-    assert "no sign-in" in words and "8050" in words
+def test_the_network_warning_is_given_for_open_reading_on_every_host_but_this_machine():
+    assert serve_cmd.network_warning("127.0.0.1", 8050, open_reading=True) is None
+    assert serve_cmd.network_warning("::1", 1, open_reading=True) is None
+    assert serve_cmd.network_warning("0.0.0.0", 8050) is None  # signing in is required: nothing to warn of
+    words = serve_cmd.network_warning("0.0.0.0", 8050, open_reading=True)
+    assert "without sign-in for reading" in words and "8050" in words
 
 
 def test_threads_out_of_range_are_refused(tmp_path):
@@ -65,7 +67,8 @@ def test_harken_serve_runs_on_waitress_with_the_headers_and_warns_on_the_network
         s.bind(("127.0.0.1", 0))
         port = s.getsockname()[1]
     proc = subprocess.Popen([sys.executable, "-m", "analysis.cli", "serve", "--store", url, "--host", "0.0.0.0",
-                             "--port", str(port), "--threads", "2", "--cache-dir", str(tmp_path / "c")],
+                             "--port", str(port), "--threads", "2", "--cache-dir", str(tmp_path / "c"),
+                             "--open-reading"],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         deadline, answer = time.monotonic() + 60, None
@@ -80,5 +83,5 @@ def test_harken_serve_runs_on_waitress_with_the_headers_and_warns_on_the_network
     finally:
         proc.terminate()
         out, err = proc.communicate(timeout=30)
-    assert "warning: --host 0.0.0.0 serves the dashboard to the network with no sign-in" in err
+    assert "warning: --host 0.0.0.0 with --open-reading serves the dashboard to the network" in err
     assert f"http://0.0.0.0:{port}/" in out and "2 threads" in out
