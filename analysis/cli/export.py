@@ -49,7 +49,7 @@ def export(args) -> int:
         if args.export_what == "actuations":
             df = store.export_actuations()
         elif args.export_what == "signals":
-            df = store.signals(active_only=not args.all)
+            df = store.signals(active_only=not args.all, reviews=True)
         else:
             df = store.quarantine()
     if args.out is None:

@@ -24,9 +24,21 @@ from . import queries
 from .core import DEFAULT_STORE_FILE, Store, default_store_url, safe_url
 from .errors import StoreError
 from .migrate import SCHEMA_VERSION
-from .types import STATISTICS, VERDICTS, Analysed, Claim, Filters, ScoredEvent, Statistic, Trajectory, statistic
+from .types import (
+    REVIEW_VERDICTS,
+    STATISTICS,
+    VERDICTS,
+    Analysed,
+    Claim,
+    Filters,
+    ScoredEvent,
+    Statistic,
+    Trajectory,
+    statistic,
+)
 
 __all__ = [
     "Store", "StoreError", "queries", "Claim", "Analysed", "ScoredEvent", "Trajectory", "Statistic", "STATISTICS",
-    "statistic", "Filters", "VERDICTS", "SCHEMA_VERSION", "DEFAULT_STORE_FILE", "default_store_url", "safe_url",
+    "statistic", "Filters", "VERDICTS", "REVIEW_VERDICTS", "SCHEMA_VERSION", "DEFAULT_STORE_FILE",
+    "default_store_url", "safe_url",
 ]

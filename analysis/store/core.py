@@ -212,6 +212,12 @@ class Store:
         with self.write() as conn:
             return writes.add_verdict(conn, flag_id, person=person, verdict=verdict, note=note, where=self.url)
 
+    def add_review(self, signal_id: int, *, person: str, verdict: str, comment: str = "") -> int:
+        """Record a signed-in person's verdict on a signal (audited); returns the verdict id."""
+        with self.write() as conn:
+            return writes.add_review(conn, signal_id, person=person, verdict=verdict, comment=comment,
+                                     where=self.url)
+
     def activate_model(self, model_id: int, *, person: str) -> None:
         """Make a stored model version the active one of its profile and event (audited)."""
         with self.write() as conn:
@@ -268,10 +274,10 @@ class Store:
         with self.read() as conn:
             return queries.export_actuations(conn)
 
-    def signals(self, *, profile: str | None = None, active_only: bool = True, levels=None):
-        """Stored signals (analysis.store.queries.signals)."""
+    def signals(self, *, profile: str | None = None, active_only: bool = True, levels=None, reviews: bool = False):
+        """Stored signals (analysis.store.queries.signals), with their latest review when ``reviews``."""
         with self.read() as conn:
-            return queries.signals(conn, profile=profile, active_only=active_only, levels=levels)
+            return queries.signals(conn, profile=profile, active_only=active_only, levels=levels, reviews=reviews)
 
     def flag_summary(self, *, by: tuple[str, ...] = ("rig", "lot")):
         with self.read() as conn:

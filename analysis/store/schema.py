@@ -234,12 +234,14 @@ flags = Table(
 verdicts = Table(
     "verdicts", metadata,
     Column("id", Integer, primary_key=True),
-    Column("flag_id", Integer, ForeignKey("flags.id"), nullable=False),
+    Column("flag_id", Integer, ForeignKey("flags.id")),  # a verdict on one flag (the first releases)
     Column("person", Text, nullable=False),
     Column("verdict", String(64), nullable=False),
     Column("note", Text),
     Column("created_at", DateTime, nullable=False),
+    Column("signal_id", Integer, ForeignKey("signals.id", name="fk_verdicts_signal")),  # a review of a signal
     Index("ix_verdicts_flag", "flag_id"),
+    Index("ix_verdicts_signal", "signal_id"),
 )
 
 #: The rig's background before the first event of each actuation (analysis.signal.background): band levels in

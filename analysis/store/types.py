@@ -18,10 +18,13 @@ import numpy as np
 from analysis.errors import ParameterError
 
 __all__ = ["Claim", "Analysed", "ScoredEvent", "Trajectory", "Statistic", "STATISTICS", "statistic", "Filters",
-           "VERDICTS"]
+           "VERDICTS", "REVIEW_VERDICTS"]
 
 #: What a person may say of a flag.
 VERDICTS = ("confirmed", "false alarm", "recording", "rig", "lot", "unit", "other")
+#: A review of a signal: what the person found, and the words shown for it. "no fault found" needs a comment.
+REVIEW_VERDICTS = {"unit": "confirmed - device or unit", "lot": "confirmed - lot", "rig": "confirmed - rig",
+                   "recording": "recording problem", "no fault found": "no fault found"}
 
 
 @dataclass(frozen=True)

@@ -29,6 +29,7 @@ from .schema import (
     reference_models,
     resonance_components,
     rigs,
+    signals,
     sites,
     trajectories,
     units,
@@ -36,7 +37,7 @@ from .schema import (
     verdicts,
 )
 from .signals import refresh_signals
-from .types import VERDICTS, Analysed, Claim
+from .types import REVIEW_VERDICTS, VERDICTS, Analysed, Claim
 
 __all__ = [
     "claim", "reopen_quarantined", "commit_analyses", "commit_quarantine", "release_claim", "insert_scores",
@@ -322,6 +323,28 @@ def add_verdict(conn, flag_id, *, person, verdict, note, where) -> int:
     ).returning(verdicts.c.id)).scalar_one()
     audit(conn, person=person, action="verdict.add", target=f"flag {flag_id}",
           detail={"verdict": verdict, "note": note or ""})
+    return vid
+
+
+def add_review(conn, signal_id, *, person, verdict, comment, where) -> int:
+    """A person's verdict on a signal (REVIEW_VERDICTS; a later one supersedes it, both kept), audited."""
+    if verdict not in REVIEW_VERDICTS:
+        raise StoreError(f"a review verdict is one of {', '.join(map(repr, REVIEW_VERDICTS))}; got {verdict!r}")
+    if not str(person).strip():
+        raise StoreError("a verdict needs the signed-in person who gives it; got an empty name")
+    comment = text(str(comment or "").strip())[:2000]
+    if verdict == "no fault found" and not comment:
+        raise StoreError("'no fault found' needs a comment: what was looked at, and why it is no fault")
+    sig = conn.execute(select(signals.c.id, signals.c.level, signals.c.lot, signals.c.rig, signals.c.unit,
+                              signals.c.actuation_id).where(signals.c.id == int(signal_id))).first()
+    if sig is None:
+        raise StoreError(f"{where}: no signal with id {signal_id}")
+    vid = conn.execute(verdicts.insert().values(
+        signal_id=int(signal_id), flag_id=None, person=text(person), verdict=verdict, note=comment or None,
+        created_at=utc_now()).returning(verdicts.c.id)).scalar_one()
+    audit(conn, person=person, action="review.add", target=f"signal {signal_id}",
+          detail={"verdict": verdict, "comment": comment, "level": sig.level, "lot": sig.lot, "rig": sig.rig,
+                  "unit": sig.unit, "actuation_id": sig.actuation_id, "verdict_id": vid})
     return vid
 
 

@@ -14,6 +14,7 @@ from analysis.triage import actuation_state
 from .. import drill, figures
 from ..audio import audio_url
 from ..labels import short
+from ..review import register_review, review_card
 from ..safety import guarded, record_id
 from ..urlstate import register_url_state
 from ..words import describe_flag
@@ -113,6 +114,7 @@ def layout(ctx, q: dict, actuation_id: int):
                         html.P("It is not in this store (a link from another store?)."),
                         dcc.Link("Back to Today", href="/"))
         fl = queries.flags(conn, actuation_ids=[actuation_id])
+        reviewable = queries.signals(conn, actuation_id=actuation_id, reviews=True)
         ref_id = None
     ev = d["events"]
     names = list(ev["name"])
@@ -176,6 +178,7 @@ def layout(ctx, q: dict, actuation_id: int):
                     if str(q.get("slice", "")).isdigit() else []))],
                 className="filter filter-wide"),
             html.P(id="actuation-note", className="muted")])),
+        review_card("actuation", reviewable, title="Review of this actuation's flags"),
         card(dcc.Graph(id="actuation-waveform", config={"displaylogo": False}),
              dcc.Graph(id="actuation-spectrogram", config={"displaylogo": False})),
         html.Div(className="grid-2", children=[
@@ -202,6 +205,7 @@ def layout(ctx, q: dict, actuation_id: int):
 
 def register(app, ctx):
     register_url_state(app, NAME, URL_STATE)
+    register_review(app, ctx, "actuation")
 
     @app.callback(Output("actuation-waveform", "figure"), Output("actuation-spectrogram", "figure"),
                   Output("actuation-bands", "figure"), Output("actuation-slices", "figure"),

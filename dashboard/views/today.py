@@ -13,6 +13,7 @@ from analysis.store import queries
 from analysis.triage import NEXT_STEP, actuation_state, subject_words, suggest_cause
 
 from ..labels import short
+from ..review import awaiting, register_review, review_card
 from ..safety import guarded
 from ..urlstate import register_url_state
 from ..words import describe_flag
@@ -41,6 +42,7 @@ def today_data(store, *, per_rig: int = 10) -> dict:
         flagged = rows[rows["actuation_id"].isin(set(fl["actuation_id"]))]
         evidence = queries.triage_evidence(conn, sorted(set(flagged["lot"])), sorted(set(flagged["rig"])))
         wide = queries.signals(conn, levels=("lot", "rig", "cell", "unit"))
+        reviewable = queries.signals(conn, reviews=True)
         stored = queries.signals(conn, levels=("actuation",))
         stored = stored[stored["actuation_id"].isin(set(flagged["actuation_id"]))]
     rows = rows.copy()
@@ -63,6 +65,7 @@ def today_data(store, *, per_rig: int = 10) -> dict:
     counts = rows["state"].value_counts().to_dict()
     counts["quarantined"] = len(quar)
     counts["signals"] = len(wide)
+    counts["awaiting review"] = awaiting(reviewable)
     return {"rows": rows, "flags": fl, "quarantine": quar, "counts": counts, "signals": wide}
 
 
@@ -102,7 +105,7 @@ def render_today(data: dict) -> html.Div:
     rows, fl, quar, counts = data["rows"], data["flags"], data["quarantine"], data["counts"]
     badges = html.Div(className="state-badges", children=[
         html.Span(f"{counts.get(s, 0)} {s}", className=f"state state-{s.replace(' ', '-')}")
-        for s in ("analysed", "flagged", "quality check failed", "quarantined")])
+        for s in ("analysed", "flagged", "quality check failed", "quarantined", "awaiting review")])
     items = []
     latest_first = fl.sort_values("recorded_at", ascending=False, kind="stable")
     for aid, g in latest_first.groupby("actuation_id", sort=False):
@@ -146,6 +149,8 @@ def render_today(data: dict) -> html.Div:
 
 def layout(ctx, q: dict):
     per_rig = pick(q.get("per_rig"), [str(v) for v in PER_RIG_CHOICES], "10")
+    with ctx.store.read() as conn:
+        reviewable = queries.signals(conn, reviews=True)
     return html.Div([
         view_header("Today", "The latest recordings of every rig. This page refreshes by itself."),
         card(html.Label([html.Span("Recordings per rig", className="filter-label"), dcc.Dropdown(
@@ -153,12 +158,14 @@ def layout(ctx, q: dict):
             options=[{"label": str(v), "value": str(v)} for v in PER_RIG_CHOICES])], className="filter")),
         dcc.Interval(id="today-interval", interval=int(ctx.refresh_s * 1000)),
         html.Div(id="today-body"),
+        review_card("today", reviewable),
         dcc.Store(id="today-url"),
     ])
 
 
 def register(app, ctx):
     register_url_state(app, NAME, URL_STATE)
+    register_review(app, ctx, "today")
 
     @app.callback(Output("today-body", "children"), Input("today-interval", "n_intervals"),
                   Input("today-per-rig", "value"))

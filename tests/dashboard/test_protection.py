@@ -141,9 +141,10 @@ def test_a_known_actuation_page_is_served(app, ctx):
     ("demo-dpi", "L2601", ["dose_release"], "Ann", "reference lots from the list"),
     ("demo-dpi", [["L2601"]], ["dose_release"], "Ann", "reference lots from the list"),
     ("demo-dpi", ["L2601"], [1], "Ann", "events from the list"),
-    ("demo-dpi", ["L2601"], ["dose_release"], "A" * 201, "up to 200 printable"),
-    ("demo-dpi", ["L2601"], ["dose_release"], "Ann\x1b[31m", "up to 200 printable"),
-    ("demo-dpi", ["L2601"], ["dose_release"], ["Ann"], "Give your name"),
+    ("demo-dpi", ["L2601"], ["dose_release"], "A" * 201, "not a user name"),
+    ("demo-dpi", ["L2601"], ["dose_release"], "Ann\x1b[31m", "not a user name"),
+    ("demo-dpi", ["L2601"], ["dose_release"], ["Ann"], "Sign in as a method owner first"),
+    ("demo-dpi", ["L2601"], ["dose_release"], None, "Sign in as a method owner first"),
 ])
 def test_a_reference_build_request_takes_a_profile_by_name_only(profile, lots, events, person, words):
     from dashboard.views.references import check_build

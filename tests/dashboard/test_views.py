@@ -255,7 +255,7 @@ def test_about_carries_the_cautions(ctx):
 def test_reference_build_runs_as_a_job_function(store_copy, tmp_path):
     from analysis.store import Store
 
-    assert references.check_build("demo-dpi", ["L2601"], ["metering_click"], " ").startswith("Give your name")
+    assert references.check_build("demo-dpi", ["L2601"], ["metering_click"], " ").startswith("Sign in as a method")
     seen = []
     made = references.build_models(store_copy, None, "demo-dpi", ["L2601", "L2602", "L2603"], ["metering_click"],
                                    "tester", progress=lambda i, n, m: seen.append((i, n)))

@@ -16,7 +16,7 @@ from ..codec import event_arrays, from_f32, resonances_from_blob, text
 from ..errors import StoreError
 from ..types import Trajectory
 from ._base import active_model_ids, counted_flag, df, model_flag, placed_full, text_by_id
-from .signals import actuation_causes
+from .signals import actuation_causes, actuation_verdicts
 
 __all__ = [
     "schema_version", "recordings", "quarantine", "recent_quarantine", "actuations", "export_actuations",
@@ -169,6 +169,7 @@ def export_actuations(conn) -> pd.DataFrame:
     base["verdicts"] = text_by_id(ids, vd.groupby("actuation_id")["verdicts"].agg("; ".join))
     causes = actuation_causes(conn)
     base["cause"] = text_by_id(ids, causes).where(base["flagged"], "")
+    base["verdict"] = text_by_id(ids, actuation_verdicts(conn))  # the latest review of its flags' signals
     return base
 
 

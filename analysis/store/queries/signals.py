@@ -10,20 +10,24 @@ from .. import schema as db
 from ..errors import StoreError
 from ._base import df
 
-__all__ = ["signals", "SIGNAL_COLUMNS", "actuation_causes", "units_table", "rig_fingerprint"]
+__all__ = ["signals", "SIGNAL_COLUMNS", "REVIEW_COLUMNS", "actuation_causes", "units_table", "rig_fingerprint",
+           "reviews", "actuation_verdicts"]
 
 #: What `harken export signals` writes, in this order.
 SIGNAL_COLUMNS = ["level", "event", "statistic", "value", "limit", "rule", "site", "rig", "lot", "unit",
                   "actuation_id", "cause", "evidence", "model_version", "first", "last", "first_seen", "last_seen",
                   "active", "profile", "signal_id"]
+#: The latest review of each signal, joined to SIGNAL_COLUMNS by ``signals(..., reviews=True)``.
+REVIEW_COLUMNS = ["verdict", "verdict_words", "verdict_by", "verdict_at", "verdict_comment", "reviews"]
 
 _LEVEL_ORDER = {"lot": 0, "rig": 1, "cell": 2, "unit": 3, "actuation": 4}
 
 
 def signals(conn, *, profile: str | None = None, active_only: bool = True, levels=None, lot: str | None = None,
-            rig: str | None = None, limit: int | None = None) -> pd.DataFrame:
-    """Stored signals (columns SIGNAL_COLUMNS), the widest level first (lot, rig, cell, unit, actuation), then the
-    latest first."""
+            rig: str | None = None, limit: int | None = None, reviews: bool = False,
+            actuation_id: int | None = None) -> pd.DataFrame:
+    """Stored signals (columns SIGNAL_COLUMNS, and REVIEW_COLUMNS with ``reviews``: the latest verdict, "" where
+    none), the widest level first (lot, rig, cell, unit, actuation), then the latest first."""
     s = db.signals
     stmt = select(s.c.level, s.c.event, s.c.statistic, s.c.value, s.c.limit_value.label("limit"), s.c.rule,
                   s.c.site, s.c.rig, s.c.lot, s.c.unit, s.c.actuation_id, s.c.cause, s.c.evidence,
@@ -42,14 +46,69 @@ def signals(conn, *, profile: str | None = None, active_only: bool = True, level
         stmt = stmt.where(s.c.lot == lot)
     if rig is not None:
         stmt = stmt.where(s.c.rig == rig)
+    if actuation_id is not None:
+        stmt = stmt.where(s.c.actuation_id == int(actuation_id))
     out = df(conn, stmt.order_by(s.c.id))
     if not len(out):
-        return pd.DataFrame(columns=SIGNAL_COLUMNS)
+        return pd.DataFrame(columns=SIGNAL_COLUMNS + (REVIEW_COLUMNS if reviews else []))
+    if reviews:
+        rv = _latest_reviews(conn, out["signal_id"])
+        out = out.merge(rv, on="signal_id", how="left")
+        for c in REVIEW_COLUMNS:
+            out[c] = out[c].fillna(0 if c == "reviews" else "")
+        out["reviews"] = out["reviews"].astype(int)
     out["active"] = out["active"].astype(bool)
     out["_o"] = out["level"].map(_LEVEL_ORDER)
     out = out.sort_values(["_o", "last"], ascending=[True, False], na_position="last").drop(columns="_o")
     out = out.reset_index(drop=True)
     return out.head(limit) if limit is not None else out
+
+
+def _latest_reviews(conn, signal_ids) -> pd.DataFrame:
+    """The latest verdict per signal id (REVIEW_COLUMNS + signal_id): what, in words, by whom, when (UTC), the
+    comment, and how many verdicts the signal has had (a later one supersedes, none is edited)."""
+    from ..types import REVIEW_VERDICTS
+
+    v = db.verdicts
+    ids = [int(i) for i in signal_ids]
+    got = df(conn, select(v.c.signal_id, v.c.id, v.c.verdict, v.c.person, v.c.created_at, v.c.note)
+             .where(v.c.signal_id.in_(ids or [-1])).order_by(v.c.id))
+    if not len(got):
+        return pd.DataFrame(columns=["signal_id"] + REVIEW_COLUMNS)
+    n = got.groupby("signal_id").size().rename("reviews")
+    last = got.drop_duplicates("signal_id", keep="last").set_index("signal_id")
+    out = pd.DataFrame({"verdict": last["verdict"], "verdict_words": last["verdict"].map(
+        lambda x: REVIEW_VERDICTS.get(x, x)), "verdict_by": last["person"],
+        "verdict_at": last["created_at"].astype(str).str[:19], "verdict_comment": last["note"].fillna("")})
+    return out.join(n).reset_index()
+
+
+def reviews(conn, signal_id: int) -> pd.DataFrame:
+    """Every verdict on one signal, oldest first: verdict, verdict_words, person, at (UTC), comment."""
+    from ..types import REVIEW_VERDICTS
+
+    v = db.verdicts
+    got = df(conn, select(v.c.verdict, v.c.person, v.c.created_at.label("at"), v.c.note.label("comment"))
+             .where(v.c.signal_id == int(signal_id)).order_by(v.c.id))
+    got["verdict_words"] = got["verdict"].map(lambda x: REVIEW_VERDICTS.get(x, x))
+    got["comment"] = got["comment"].fillna("")
+    return got
+
+
+def actuation_verdicts(conn) -> pd.Series:
+    """The latest verdict (in words, with who gave it) on each actuation's actuation-level signals, by actuation id;
+    several events' reviews joined with "; "."""
+    s = db.signals
+    acts = df(conn, select(s.c.id.label("signal_id"), s.c.actuation_id, s.c.event).where(
+        and_(s.c.level == "actuation", s.c.actuation_id.is_not(None))).order_by(s.c.id))
+    if not len(acts):
+        return pd.Series(dtype=object)
+    rv = _latest_reviews(conn, acts["signal_id"])
+    if not len(rv):
+        return pd.Series(dtype=object)
+    m = acts.merge(rv, on="signal_id")
+    m["text"] = m["verdict_words"] + " (" + m["verdict_by"] + ", " + m["verdict_at"] + ")"
+    return m.groupby("actuation_id")["text"].agg(lambda t: "; ".join(dict.fromkeys(t)))
 
 
 def actuation_causes(conn, actuation_ids=None) -> pd.Series:

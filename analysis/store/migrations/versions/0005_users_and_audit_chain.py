@@ -1,4 +1,5 @@
-"""People and roles (users), and the audit trail as a hash chain (audit_log.prev_sha256, row_sha256).
+"""People and roles (users), the audit trail as a hash chain (audit_log.prev_sha256, row_sha256), and verdicts on
+signals (verdicts.signal_id; flag_id becomes optional: a review is of a signal, which names its flag's actuation).
 
 The existing audit rows are chained here in id order, with a frozen copy of the recipe of analysis/store/audit.py
 as it was when this revision was written; the head goes to store_info (audit_head). The append-only triggers are
@@ -67,6 +68,10 @@ def upgrade() -> None:
         sa.Column("created_by", sa.Text, nullable=False),
         sa.UniqueConstraint("user_name", name="uq_users_name"),
     )
+    with op.batch_alter_table("verdicts") as batch:
+        batch.alter_column("flag_id", existing_type=sa.Integer, nullable=True)
+        batch.add_column(sa.Column("signal_id", sa.Integer, sa.ForeignKey("signals.id", name="fk_verdicts_signal")))
+    op.create_index("ix_verdicts_signal", "verdicts", ["signal_id"])
     dialect = op.get_context().dialect.name
     for ddl in DROP_TRIGGERS.get(dialect, []):
         op.execute(ddl)
@@ -103,4 +108,9 @@ def downgrade() -> None:
     for ddl in APPEND_ONLY_DDL.get(dialect, []):
         op.execute(ddl)
     op.execute("DELETE FROM store_info WHERE key = 'audit_head'")
+    op.drop_index("ix_verdicts_signal", table_name="verdicts")
+    op.execute("DELETE FROM verdicts WHERE flag_id IS NULL")
+    with op.batch_alter_table("verdicts") as batch:
+        batch.drop_column("signal_id")
+        batch.alter_column("flag_id", existing_type=sa.Integer, nullable=False)
     op.drop_table("users")

@@ -1,0 +1,100 @@
+"""Sign-in, roles and the review of signals in Chromium (dashboard.auth, dashboard.review) on a private store with a
+viewer (vic), a technician (tom) and a method owner (ada)."""
+
+from __future__ import annotations
+
+import pandas as pd
+
+from tests.e2e.conftest import sign_in
+
+
+def _settle(page):
+    page.wait_for_load_state("networkidle")
+
+
+def test_signing_in_and_out(page, writable_server):
+    sign_in(page, writable_server, "tom")
+    _settle(page)
+    page.wait_for_selector("#app-user-name:has-text('Tom Tech (technician)')")
+    page.click("#app-signout")
+    page.wait_for_selector("#signin-form")
+    assert "/signin" in page.url
+    page.goto(writable_server + "/")
+    _settle(page)
+    page.wait_for_selector("#app-signin")  # reading is open on this server, but nobody is signed in
+    assert page.errors == []
+
+
+def test_a_viewer_sees_no_write_controls_and_a_replayed_write_is_refused(page, writable_server):
+    sign_in(page, writable_server, "vic")
+    _settle(page)
+    page.wait_for_selector("#today-review-who:has-text('needs the technician')")
+    assert page.locator("#today-review-submit").count() == 0
+    page.goto(writable_server + "/references")
+    _settle(page)
+    assert page.locator("#references-build").count() == 0
+    # the write callback's request, sent with the viewer's own session cookie, as a crafted client would
+    body = {"output": "today-review-status.children",
+            "outputs": {"id": "today-review-status", "property": "children"},
+            "inputs": [{"id": "today-review-submit", "property": "n_clicks", "value": 1}],
+            "state": [{"id": "today-review-target", "property": "value", "value": 1},
+                      {"id": "today-review-verdict", "property": "value", "value": "unit"},
+                      {"id": "today-review-comment", "property": "value", "value": ""},
+                      {"id": "app-user", "property": "data", "value": "vic"}],
+            "changedPropIds": ["today-review-submit.n_clicks"]}
+    r = page.request.post(writable_server + "/_dash-update-component", data=body)
+    assert r.status == 403 and "role viewer does not include technician" in r.text()
+
+
+def test_a_technician_records_a_verdict_that_shows_on_today_in_the_export_and_the_audit(page, writable_server,
+                                                                                      store_copy):
+    from analysis.store import Store
+    from analysis.store import audit as chain
+
+    sign_in(page, writable_server, "tom")
+    _settle(page)
+    page.wait_for_selector("#today-review-submit")
+    title = page.locator("#today-review-title").inner_text()
+    waiting = int(title.split("(")[1].split()[0])
+    assert waiting >= 1
+    target = page.eval_on_selector("#today-review-target", "e => e.textContent")
+    assert "awaiting" in target
+    # "no fault found" without a comment is refused with the reason
+    page.click("#today-review-verdict input[value='no fault found']")
+    page.click("#today-review-submit")
+    page.wait_for_selector("#today-review-status:has-text('needs a comment')")
+    page.fill("#today-review-comment", "<b>listened</b> & compared: <script>alert(1)</script> no fault")
+    page.click("#today-review-submit")
+    page.wait_for_selector("#today-review-status:has-text('Recorded: no fault found, by tom')")
+    page.reload()
+    _settle(page)
+    page.wait_for_selector("#today-reviewed tbody tr")
+    row = page.locator("#today-reviewed tbody tr").first.inner_text()
+    assert "no fault found" in row and "tom" in row
+    # the comment's HTML is shown as text, not made into elements
+    assert "<b>listened</b>" in row and page.locator("#today-reviewed b").count() == 0
+    assert int(page.locator("#today-review-title").inner_text().split("(")[1].split()[0]) == waiting - 1
+    assert page.errors == []
+    with Store.open(store_copy, create=False) as store:
+        sig = store.signals(reviews=True)
+        done = sig[sig["reviews"] > 0]
+        exported = store.export_actuations()
+        log = store.audit_log()
+        with store.read() as conn:
+            assert chain.verify(conn)[1] is None
+    assert len(done) == 1 and done.iloc[0]["verdict"] == "no fault found" and done.iloc[0]["verdict_by"] == "tom"
+    if done.iloc[0]["level"] == "actuation":
+        aid = int(done.iloc[0]["actuation_id"])
+        assert "no fault found (tom" in exported.loc[exported["actuation_id"] == aid, "verdict"].iloc[0]
+    review = log[log["action"] == "review.add"]
+    assert list(review["person"]) == ["tom"] and "listened" in review["detail"].iloc[0]
+    assert isinstance(pd.Timestamp(done.iloc[0]["verdict_at"]), pd.Timestamp)
+
+
+def test_five_wrong_passwords_lock_the_account(page, writable_server):
+    for _ in range(5):
+        sign_in(page, writable_server, "ada", password="not her password at all")
+        page.wait_for_selector("#signin-error:has-text('wrong password')")
+    sign_in(page, writable_server, "ada")  # the right one, too late
+    page.wait_for_selector("#signin-error:has-text('Too many failed sign-ins for ada')")
+    assert "/signin" in page.url or page.locator("#signin-form").count() == 1
