@@ -96,11 +96,11 @@ class ModelInfo:
 def build_reference(
     store: Store, profile: str, events: Sequence[str] | None, lots: Iterable[str], *, created_by: str | None = None,
     profile_dirs: Iterable[str | Path] = (), n_components: int | None = None, scaling: str = "unit",
-    alpha: float = 0.01, log: Callable[[str], None] = lambda msg: None,
+    alpha: float = 0.01, log: Callable[[str], None] = lambda msg: None, activate: bool = True,
 ) -> list[ModelInfo]:
     """Fit one reference model per event from the band levels stored for ``lots``, store each as the new active
-    version (audited), and score every stored actuation of the profile with it. ``events`` None or empty means
-    every event of the profile."""
+    version (or, with ``activate`` False, as a version pending a signed approval; audited), and score every stored
+    actuation of the profile with it. ``events`` None or empty means every event of the profile."""
     prof = find_profile(profile, search_dirs=profile_dirs)  # a name, never a path (the dashboard calls this)
     names = list(events or prof.event_names)
     for e in names:
@@ -122,7 +122,7 @@ def build_reference(
             model, units=np.asarray(units), lots=np.asarray(fs.lots), alpha=alpha / len(names)).items()}
         model.metadata_ = meta
         model_id, version = store.insert_model(profile=prof.name, event=event, model=model, meta=meta,
-                                               created_by=who)
+                                               created_by=who, activate=activate)
         log(f"{prof.name}/{event}: version {version} (model {model_id}) from {len(fs.paths)} actuations of lots "
             f"{', '.join(sorted(set(fs.lots)))}, {model.n_components_} components, {len(fs.excluded)} left out")
         n = rescore(store, prof.name, events=[event], model_id=model_id)

@@ -1,22 +1,30 @@
-"""``harken reference build|list|activate`` and ``harken rescore``: reference models in the store."""
+"""``harken reference build|list|approve|policy|activate`` and ``harken rescore``: reference models in the store.
+
+In a store with users, a build is attributed to a user of the store (``--by``, else the login name when it is
+one), the new version waits for a signed approval (`harken reference approve`: the method owner re-enters the
+password and gives the signature's meaning and a reason), and `activate` is refused. A store without users (a
+single person's store) builds active versions, as before users existed."""
 
 from __future__ import annotations
 
 from ..errors import AnalysisError
 from ._common import add_profiles, add_store
 
-__all__ = ["register", "build", "list_models", "activate", "rescore"]
+__all__ = ["register", "build", "list_models", "approve", "policy", "activate", "rescore"]
 
 
 def register(sub) -> None:
     p = sub.add_parser("reference", help="reference models in the store")
     rsub = p.add_subparsers(dest="reference_command", required=True, metavar="ACTION")
-    b = rsub.add_parser("build", help="fit reference models from stored lots, make them active, score history")
+    b = rsub.add_parser("build", help="fit reference models from stored lots and score history (in a store with "
+                                      "users the new version waits for `harken reference approve`)")
     b.add_argument("--profile", required=True)
     b.add_argument("--event", action="append", default=[], metavar="EVENT",
                    help="event to model (repeatable; default: every event of the profile)")
     b.add_argument("--lots", required=True, metavar="L1,L2,...", help="reference lots, comma-separated")
-    b.add_argument("--by", default=None, metavar="NAME", help="who builds it (default: the login name)")
+    b.add_argument("--by", default=None, metavar="NAME",
+                   help="who builds it: in a store with users, an active method owner of the store (default: the "
+                        "login name, when it is one)")
     b.add_argument("--components", type=int, default=None, help="fix the number of components (default: by CV)")
     b.add_argument("--scaling", choices=("centre", "unit", "pareto"), default="unit")
     b.add_argument("--alpha", type=float, default=0.01, help="actuation-level false-alarm rate (default 0.01)")
@@ -26,7 +34,22 @@ def register(sub) -> None:
     ls = rsub.add_parser("list", help="list stored model versions")
     add_store(ls)
     ls.set_defaults(func=list_models)
-    a = rsub.add_parser("activate", help="make a stored model version the active one")
+    ap = rsub.add_parser("approve", help="sign the approval of a pending version and make it active (audited)")
+    ap.add_argument("--model", type=int, required=True, metavar="ID")
+    ap.add_argument("--by", required=True, metavar="NAME", help="the approving method owner (a user of the store)")
+    ap.add_argument("--meaning", required=True, help="the signature's meaning: 'approved for routine monitoring' "
+                                                     "or 'approved for investigation only'")
+    ap.add_argument("--reason", required=True, help="why this version is approved")
+    ap.add_argument("--password-stdin", action="store_true",
+                    help="read the password from standard input instead of asking on the terminal")
+    add_store(ap)
+    ap.set_defaults(func=approve)
+    po = rsub.add_parser("policy", help="the site's rules for approvals (audited)")
+    po.add_argument("--approver-not-builder", choices=("yes", "no"), required=True,
+                    help="whether the approver must be someone other than the person who built the version")
+    add_store(po)
+    po.set_defaults(func=policy)
+    a = rsub.add_parser("activate", help="make a stored model version the active one (a store without users only)")
     a.add_argument("--model", type=int, required=True, metavar="ID")
     a.add_argument("--by", default=None, metavar="NAME")
     add_store(a)
@@ -41,12 +64,53 @@ def register(sub) -> None:
 
 def build(args) -> int:
     from ..references import build_reference
+    from ..scoring import current_user
     from ..store import Store
+    from ..store.users import list_users, role_at_least
 
     lots = [x for x in args.lots.split(",") if x.strip()]
     with Store.open(args.store) as store:
-        build_reference(store, args.profile, args.event, lots, created_by=args.by, profile_dirs=args.profiles,
-                        n_components=args.components, scaling=args.scaling, alpha=args.alpha, log=print)
+        with store.read() as conn:
+            users = {u.user_name: u for u in list_users(conn)}
+        who, activate = args.by, True
+        if users:
+            who = args.by or current_user()
+            u = users.get(who)
+            if u is None or not u.active or not role_at_least(u.role, "method_owner"):
+                raise AnalysisError(f"{store.url}: this store has users, so a build is attributed to one: give --by "
+                                    f"an active method owner of the store ({who!r} is not one)")
+            activate = False
+        made = build_reference(store, args.profile, args.event, lots, created_by=who, profile_dirs=args.profiles,
+                               n_components=args.components, scaling=args.scaling, alpha=args.alpha, log=print,
+                               activate=activate)
+    if not activate:
+        for m in made:
+            print(f"model {m.model_id} ({m.event} version {m.version}) awaits approval: harken reference approve "
+                  f"--model {m.model_id} --by NAME --meaning '...' --reason '...'")
+    return 0
+
+
+def approve(args) -> int:
+    from ..store import Store
+    from .user import _password
+
+    password = _password(args, twice=False)
+    with Store.open(args.store) as store:
+        store.approve_model(args.model, person=args.by, password=password, meaning=args.meaning,
+                            reason=args.reason)
+    print(f"model {args.model} approved by {args.by} ({args.meaning}) and now active")
+    return 0
+
+
+def policy(args) -> int:
+    from ..store import Store
+    from ..store.writes import POLICY_OTHER_APPROVER
+    from .user import _by
+
+    with Store.open(args.store) as store:
+        store.set_policy(POLICY_OTHER_APPROVER, "true" if args.approver_not_builder == "yes" else "false",
+                         person=_by())
+    print(f"approver must differ from the builder: {args.approver_not_builder}")
     return 0
 
 
@@ -64,8 +128,13 @@ def list_models(args) -> int:
 def activate(args) -> int:
     from ..scoring import current_user
     from ..store import Store
+    from ..store.users import list_users
 
     with Store.open(args.store) as store:
+        with store.read() as conn:
+            if list_users(conn):
+                raise AnalysisError(f"{store.url}: this store has users: a version becomes active by a signed "
+                                    "approval (`harken reference approve`)")
         store.activate_model(args.model, person=args.by or current_user())
     print(f"model {args.model} is now active")
     return 0

@@ -51,7 +51,7 @@ def _by() -> str:
     return f"{current_user()} (command line)"
 
 
-def _password(args) -> str:
+def _password(args, *, twice: bool = True) -> str:
     if args.password_stdin:
         line = sys.stdin.readline().rstrip("\r\n")
         if not line:
@@ -60,7 +60,7 @@ def _password(args) -> str:
     if not sys.stdin.isatty():
         raise AnalysisError("no terminal to ask for a password on: use --password-stdin")
     first = getpass.getpass("password: ")
-    if getpass.getpass("password again: ") != first:
+    if twice and getpass.getpass("password again: ") != first:
         raise AnalysisError("the two passwords differ; nothing was changed")
     return first
 

@@ -212,6 +212,24 @@ class Store:
         with self.write() as conn:
             return writes.add_verdict(conn, flag_id, person=person, verdict=verdict, note=note, where=self.url)
 
+    def approve_model(self, model_id: int, *, person: str, password: str, meaning: str, reason: str) -> int:
+        """A signed approval: ``person`` re-enters their password; the pending version becomes active (audited)."""
+        from .users import check_password
+
+        with self.read() as conn:
+            user = check_password(conn, person, password)
+        if user is None:  # audited in a transaction of its own: the refusal must not roll back with anything
+            self.audit(person=person, action="reference.approve_refused", target=f"model {model_id}",
+                       detail={"why": "password not confirmed"})
+            raise StoreError(f"the approval of model {model_id} needs {person}'s own password, re-entered; it did "
+                             "not match (or the user is not active)")
+        with self.write() as conn:
+            return writes.approve_model(conn, model_id, user=user, meaning=meaning, reason=reason, where=self.url)
+
+    def set_policy(self, key: str, value: str, *, person: str) -> None:
+        with self.write() as conn:
+            writes.set_policy(conn, key, value, person=person)
+
     def add_review(self, signal_id: int, *, person: str, verdict: str, comment: str = "") -> int:
         """Record a signed-in person's verdict on a signal (audited); returns the verdict id."""
         with self.write() as conn:

@@ -152,7 +152,7 @@ events = Table(
     Index("ix_events_name", "name", "actuation_id"),
 )
 
-#: status: "active" (one per profile and event) or "retired".
+#: status: "active" (one per profile and event), "retired", or "pending" (built, awaiting a signed approval).
 reference_models = Table(
     "reference_models", metadata,
     Column("id", Integer, primary_key=True),
@@ -303,6 +303,19 @@ users = Table(
     Column("created_at", DateTime, nullable=False),
     Column("created_by", Text, nullable=False),
     UniqueConstraint("user_name", name="uq_users_name"),
+)
+
+#: A signed approval: a method owner re-entered their password and gave the signature's meaning and a reason;
+#: the model version became active with it.
+approvals = Table(
+    "approvals", metadata,
+    Column("id", Integer, primary_key=True),
+    Column("model_id", Integer, ForeignKey("reference_models.id"), nullable=False),
+    Column("person", Text, nullable=False),
+    Column("at", DateTime, nullable=False),
+    Column("meaning", Text, nullable=False),
+    Column("reason", Text, nullable=False),
+    Index("ix_approvals_model", "model_id"),
 )
 
 #: Append-only: the store's code only ever inserts here, through analysis.store.audit (a hash chain).

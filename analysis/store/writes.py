@@ -20,6 +20,7 @@ from .errors import StoreError
 from .integrity import flags_digest, model_digest, qc_digest
 from .schema import (
     actuations,
+    approvals,
     backgrounds,
     events,
     flags,
@@ -31,6 +32,7 @@ from .schema import (
     rigs,
     signals,
     sites,
+    store_info,
     trajectories,
     units,
     utc_now,
@@ -288,7 +290,7 @@ def insert_model(conn, *, profile, event, model_json: str, model_npz: bytes, met
         profile_version=meta.get("profile_version"), profile_sha256=meta.get("profile_sha256") or None,
     )
     model_id = conn.execute(reference_models.insert().values(
-        status="active" if activate else "retired", content_sha256=model_digest(row), **row,
+        status="active" if activate else "pending", content_sha256=model_digest(row), **row,
     ).returning(reference_models.c.id)).scalar_one()
     audit(conn, person=created_by, action="reference.build", target=f"model {model_id}",
           detail={"profile": profile, "event": event, "version": version, "active": activate,
@@ -308,6 +310,57 @@ def activate_model(conn, model_id, *, person, where):
     conn.execute(reference_models.update().where(reference_models.c.id == model_id).values(status="active"))
     audit(conn, person=person, action="reference.activate", target=f"model {model_id}",
           detail={"profile": row.profile, "event": row.event, "version": row.version})
+
+
+#: The meanings a signed approval can carry.
+APPROVAL_MEANINGS = ("approved for routine monitoring", "approved for investigation only")
+#: store_info key of the site's rule that the approver must not be the person who built the version.
+POLICY_OTHER_APPROVER = "policy.approver_not_builder"
+
+
+def approve_model(conn, model_id, *, user, meaning, reason, where) -> int:
+    """A signed approval of a pending model version by ``user`` (a store User whose password the caller has just
+    checked): recorded, the version made active, the signals refreshed, all in this transaction and audited."""
+    from .users import role_at_least
+
+    m = reference_models
+    row = conn.execute(select(m.c.profile, m.c.event, m.c.version, m.c.status, m.c.created_by)
+                       .where(m.c.id == int(model_id))).first()
+    if row is None:
+        raise StoreError(f"{where}: no reference model with id {model_id}")
+    if row.status != "pending":
+        raise StoreError(f"{where}: model {model_id} ({row.profile}/{row.event} version {row.version}) is "
+                         f"{row.status}, not awaiting approval")
+    if not (user.active and role_at_least(user.role, "method_owner")):
+        raise StoreError(f"approving a reference model needs an active method owner; {user.user_name} is "
+                         f"{user.role} ({user.state})")
+    if meaning not in APPROVAL_MEANINGS:
+        raise StoreError(f"the signature's meaning is one of {', '.join(map(repr, APPROVAL_MEANINGS))}; got "
+                         f"{meaning!r}")
+    reason = text(str(reason or "").strip())[:2000]
+    if not reason:
+        raise StoreError("an approval needs a reason")
+    rule = conn.execute(select(store_info.c.value).where(store_info.c.key == POLICY_OTHER_APPROVER)).scalar()
+    if rule == "true" and row.created_by == user.user_name:
+        raise StoreError(f"this site requires that the approver is not the person who built the version; "
+                         f"{user.user_name} built model {model_id}")
+    aid = conn.execute(approvals.insert().values(model_id=int(model_id), person=user.user_name, at=utc_now(),
+                                                 meaning=meaning, reason=reason).returning(approvals.c.id)).scalar_one()
+    conn.execute(m.update().where(and_(m.c.profile == row.profile, m.c.event == row.event,
+                                       m.c.status == "active")).values(status="retired"))
+    conn.execute(m.update().where(m.c.id == int(model_id)).values(status="active"))
+    audit(conn, person=user.user_name, action="reference.approve", target=f"model {model_id}",
+          detail={"profile": row.profile, "event": row.event, "version": row.version, "meaning": meaning,
+                  "reason": reason, "built_by": row.created_by, "approval_id": aid})
+    refresh_signals(conn, row.profile)
+    return aid
+
+
+def set_policy(conn, key: str, value: str, *, person) -> None:
+    old = conn.execute(select(store_info.c.value).where(store_info.c.key == key)).scalar()
+    if conn.execute(store_info.update().where(store_info.c.key == key).values(value=value)).rowcount == 0:
+        conn.execute(store_info.insert().values(key=key, value=value))
+    audit(conn, person=person, action="policy.set", target=key, detail={"from": old, "to": value})
 
 
 # ---------------------------------------------------------------------------------------------------- verdicts

@@ -9,7 +9,7 @@ import pandas as pd
 from dash import Input, Output, State, dcc, html
 
 from analysis.profiles import is_profile_name
-from analysis.store import queries
+from analysis.store import StoreError, queries
 
 from .. import auth
 from ..safety import guarded
@@ -24,20 +24,26 @@ IN_MENU = True
 def models_view(store) -> html.Div:
     with store.read() as conn:
         df = queries.models(conn, counts=True)
+        signed = queries.approvals(conn)
     if df.empty:
         return html.P("No reference model yet: build one below from lots of known-good devices.", id="references-table")
     df = df.sort_values(["profile", "event", "version"], ascending=[True, True, False])  # newest version first
     df["lots"] = df["reference_lots"].map(", ".join)
     df["params"] = df["parameters"].map(lambda p: ", ".join(f"{k}={v}" for k, v in p.items() if v is not None))
     df["made"] = [f"{who}, {str(at)[:16]} UTC" for who, at in zip(df["created_by"], df["created_at"])]
+    last = signed.drop_duplicates("model_id", keep="last").set_index("model_id") if len(signed) else signed
+    df["approved"] = [f"{last.at[i, 'person']}, {str(last.at[i, 'at'])[:16]} UTC: {last.at[i, 'meaning']} "
+                      f"({last.at[i, 'reason']})" if len(last) and i in last.index else
+                      ("awaiting approval" if s == "pending" else "") for i, s in zip(df["id"], df["status"])]
     df["profile_file"] = [f"version {int(v)}, SHA-256 {h[:12]}…" if pd.notna(v) and isinstance(h, str) else
                           "not recorded" for v, h in zip(df["profile_version"], df["profile_sha256"])]
     return table(df, [("profile", "Profile", str), ("event", "Event", str), ("version", "Version"),
                       ("status", "Status", str), ("lots", "Reference lots", str), ("n_recordings", "Actuations"),
                       ("n_components", "Components"), ("t2_limit", "T² limit"), ("spe_limit", "SPE limit"),
                       ("scored", "Scored"), ("flagged", "Flagged"), ("made", "Made by, when", str),
+                      ("approved", "Signed approval", str),
                       ("profile_file", "Profile file", str), ("params", "Parameters", str)], id="references-table",
-                 row_class=lambda r: "row-active" if r["status"] == "active" else "row-retired")
+                 row_class=lambda r: {"active": "row-active", "pending": "row-pending"}.get(r["status"], "row-retired"))
 
 
 def build_models(store_url, files_dir, profile: str, lots_, events_, person: str, progress=lambda i, n, msg: None):
@@ -51,7 +57,8 @@ def build_models(store_url, files_dir, profile: str, lots_, events_, person: str
     with Store.open(store_url, files_dir=files_dir, create=False) as store:
         for i, event in enumerate(names):
             progress(i, len(names), f"fitting {event.replace('_', ' ')} ({i + 1} of {len(names)}) ...")
-            made = build_reference(store, profile, [event], lots_, created_by=person)
+            # a build from the dashboard waits for a signed approval before it is active
+            made = build_reference(store, profile, [event], lots_, created_by=person, activate=False)
             done += made
         progress(len(names), len(names), "done")
     return done
@@ -73,9 +80,10 @@ def layout(ctx, q: dict):
                                   "scored against the active version of its event."),
         card(html.H2("Stored models"), html.Div(models_view(ctx.store), id="references-models")),
         card(html.H2("Build a new version"),
-             html.P("Choose the lots that make the reference set. Building fits one model per chosen event, makes "
-                    "it the active version (the old one is kept, retired) and scores every stored actuation with it. "
-                    "It is recorded in the store's audit log under your name.", className="muted"),
+             html.P("Choose the lots that make the reference set. Building fits one model per chosen event and scores "
+                    "every stored actuation with it; the new version becomes active only when a method owner signs "
+                    "its approval below (the old one is then kept, retired). Both are recorded in the store's audit "
+                    "trail under the signed-in person.", className="muted"),
              _who_builds(),
              html.Div(className="filter-bar", children=[
                  html.Label([html.Span("Device profile", className="filter-label"), dcc.Dropdown(
@@ -96,8 +104,46 @@ def layout(ctx, q: dict):
                  html.Progress(id="references-progress", value="0", max="1", className="progress"),
                  html.Span(id="references-status", className="muted"),
              ]) if can_build() else html.Span(id="references-status")),
+        approval_card(ctx.store),
         dcc.Store(id="references-load-id", data=uuid.uuid4().hex),
     ])
+
+
+MEANINGS = ("approved for routine monitoring", "approved for investigation only")
+
+
+def approval_card(store):
+    """The signed approval of a pending version: the method owner re-enters the password, gives the
+    signature's meaning and a reason."""
+    with store.read() as conn:
+        df = queries.models(conn)
+    pending = df[df["status"] == "pending"] if len(df) else df
+    if not can_build():
+        return card(html.H2("Approve a version"), html.P(
+            f"{len(pending)} version(s) await a signed approval by a method owner.", className="muted",
+            id="references-approve-who"))
+    options = [{"label": f"{r.profile}/{r.event} version {r.version} (model {r.id}), built by {r.created_by}",
+                "value": int(r.id)} for r in pending.itertuples()]
+    return card(html.H2("Approve a version"),
+                html.P("Signing makes the version active for monitoring. Re-enter your password: the store records "
+                       "your name, the time (UTC), the meaning of the signature and your reason with the version.",
+                       className="muted"),
+                html.Div(className="filter-bar", children=[
+                    html.Label([html.Span("Version", className="filter-label"), dcc.Dropdown(
+                        id="references-approve-model", options=options,
+                        value=options[0]["value"] if options else None, placeholder="no version awaits approval")],
+                        className="filter filter-wide"),
+                    html.Label([html.Span("Meaning", className="filter-label"), dcc.Dropdown(
+                        id="references-approve-meaning", options=list(MEANINGS), value=MEANINGS[0],
+                        clearable=False)], className="filter filter-wide"),
+                ]),
+                html.Label([html.Span("Reason", className="filter-label"), dcc.Textarea(
+                    id="references-approve-reason", maxLength=2000, className="review-comment")], className="filter"),
+                html.Label([html.Span("Your password, again", className="filter-label"), dcc.Input(
+                    id="references-approve-password", type="password", value="", className="text-input",
+                    autoComplete="current-password")], className="filter"),
+                html.Button("Sign and activate", id="references-approve-submit", className="button-primary"),
+                html.Div(id="references-approve-status", className="review-status"))
 
 
 def can_build() -> bool:
@@ -161,6 +207,34 @@ def register(app, ctx):
     # The server's gate (dashboard.auth) lets this callback's requests through only for a signed-in method owner
     # whose own name is the app-user value it carries; the job then records the build under that name.
     auth.require("references-models", "method_owner")
+    auth.require("references-approve-status", "method_owner")
+
+    @app.callback(Output("references-approve-status", "children"),
+                  Output("references-models", "children", allow_duplicate=True),
+                  Output("references-approve-password", "value"),
+                  Input("references-approve-submit", "n_clicks"), State("references-approve-model", "value"),
+                  State("references-approve-meaning", "value"), State("references-approve-reason", "value"),
+                  State("references-approve-password", "value"), State("app-user", "data"),
+                  prevent_initial_call=True)
+    @guarded("text", "children", "keep")
+    def approve(_n, model_id, meaning, reason, password, person):
+        user = auth.signed_in()
+        if user is None or person != user.user_name or not auth.store_users.role_at_least(user.role,
+                                                                                             "method_owner"):
+            return "Refused: approving needs a signed-in method owner.", models_view(ctx.store), ""
+        if not isinstance(model_id, int) or isinstance(model_id, bool):
+            return "Choose the version to approve.", models_view(ctx.store), ""
+        if meaning not in MEANINGS:
+            return "Choose the meaning of your signature.", models_view(ctx.store), ""
+        if not isinstance(reason, str) or not reason.strip():
+            return "Give a reason for the approval.", models_view(ctx.store), ""
+        try:
+            ctx.store.approve_model(model_id, person=user.user_name, password=str(password or ""), meaning=meaning,
+                                    reason=reason)
+        except StoreError as exc:
+            return f"Not approved: {exc.reason if hasattr(exc, 'reason') else exc}", models_view(ctx.store), ""
+        return (f"Model {model_id} approved by {user.user_name} ({meaning}) and now active.",
+                models_view(ctx.store), "")
 
     @app.callback(
         Output("references-models", "children"), Output("references-status", "children"),

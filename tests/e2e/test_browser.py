@@ -10,7 +10,7 @@ import re
 import pytest
 import soundfile as sf
 
-from tests.e2e.conftest import sign_in
+from tests.e2e.conftest import PASSWORD, sign_in
 
 VIEWS = [("today", "/"), ("lots", "/lots"), ("trajectories", "/trajectories"), ("rigs", "/rigs"),
          ("references", "/references"), ("about", "/about"), ("actuation", "/actuation/104")]
@@ -172,7 +172,22 @@ def test_reference_build_runs_in_the_background_with_progress(page, writable_ser
     page.screenshot(path=str(artifacts / "references-built.png"), full_page=True)
     rows = page.locator("#references-table tbody tr")
     texts = [rows.nth(i).inner_text() for i in range(rows.count())]
-    assert any("metering_click" in t and "active" in t and "ada" in t for t in texts)
-    assert any("metering_click" in t and "retired" in t for t in texts)
+    assert any("metering_click" in t and "pending" in t and "awaiting approval" in t for t in texts)
     assert page.eval_on_selector("#references-progress", "p => p.value") == 1
+    # the signed approval: a wrong password is refused, the right one activates the version
+    page.reload()
+    _settle(page)
+    page.fill("#references-approve-reason", "reference lots reviewed at the method meeting")
+    page.fill("#references-approve-password", "not the password")
+    page.click("#references-approve-submit")
+    page.wait_for_selector("#references-approve-status:has-text('Not approved')")
+    page.fill("#references-approve-password", PASSWORD)
+    page.click("#references-approve-submit")
+    page.wait_for_selector("#references-approve-status:has-text('approved by ada')")
+    rows = page.locator("#references-table tbody tr")
+    texts = [rows.nth(i).inner_text() for i in range(rows.count())]
+    assert any("metering_click" in t and "active" in t and "ada" in t and "approved for routine monitoring" in t
+               for t in texts)
+    assert any("metering_click" in t and "retired" in t for t in texts)
+    assert page.eval_on_selector("#references-approve-password", "e => e.value") == ""
     assert page.errors == []

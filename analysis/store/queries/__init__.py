@@ -25,7 +25,7 @@ from .aggregates import (
     rig_summary,
     triage_evidence,
 )
-from .models import active_models, load_model, models, reference_lots, typical_reference_actuation
+from .models import active_models, approvals, load_model, models, reference_lots, typical_reference_actuation
 from .records import (
     actuation_detail,
     actuations,
@@ -53,7 +53,7 @@ __all__ = [
     "schema_version", "recordings", "quarantine", "recent_quarantine", "actuations", "export_actuations", "flags",
     "actuation_detail", "band_levels", "event_levels", "trajectory", "trajectories", "unscored", "latest_per_rig",
     "lot_actuations", "lot_names", "audit_log", "check_integrity", "kept_files",
-    "models", "load_model", "active_models", "reference_lots", "typical_reference_actuation",
+    "models", "load_model", "active_models", "reference_lots", "typical_reference_actuation", "approvals",
     "choices", "lot_points", "actuation_cloud", "rig_summary", "reference_summary", "rig_histogram",
     "triage_evidence", "flag_summary", "fingerprint", "signals", "actuation_causes", "units_table", "SIGNAL_COLUMNS",
     "rig_fingerprint",

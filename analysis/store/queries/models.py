@@ -13,7 +13,7 @@ from ..codec import model_from_blobs
 from ..errors import StoreError
 from ._base import df
 
-__all__ = ["models", "load_model", "active_models", "reference_lots", "typical_reference_actuation"]
+__all__ = ["models", "load_model", "active_models", "reference_lots", "typical_reference_actuation", "approvals"]
 
 _BLOBS = ("model_json", "model_npz")
 
@@ -84,3 +84,9 @@ def typical_reference_actuation(conn, profile: str, event: str) -> int | None:
                         a.c.passed_qc.is_(True), t.c.trajectory_distance.is_not(None)))
             .order_by(t.c.trajectory_distance, a.c.id).limit(1))
     return conn.execute(stmt).scalar()
+
+
+def approvals(conn) -> pd.DataFrame:
+    """Every signed approval, oldest first: model_id, person, at (UTC), meaning, reason."""
+    a = db.approvals
+    return df(conn, select(a.c.model_id, a.c.person, a.c.at, a.c.meaning, a.c.reason).order_by(a.c.id))

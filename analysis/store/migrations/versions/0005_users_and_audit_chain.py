@@ -1,4 +1,5 @@
-"""People and roles (users), the audit trail as a hash chain (audit_log.prev_sha256, row_sha256), and verdicts on
+"""People and roles (users), signed approvals of reference models (approvals), the audit trail as a hash chain
+(audit_log.prev_sha256, row_sha256), and verdicts on
 signals (verdicts.signal_id; flag_id becomes optional: a review is of a signal, which names its flag's actuation).
 
 The existing audit rows are chained here in id order, with a frozen copy of the recipe of analysis/store/audit.py
@@ -68,6 +69,16 @@ def upgrade() -> None:
         sa.Column("created_by", sa.Text, nullable=False),
         sa.UniqueConstraint("user_name", name="uq_users_name"),
     )
+    op.create_table(
+        "approvals",
+        sa.Column("id", sa.Integer, primary_key=True),
+        sa.Column("model_id", sa.Integer, sa.ForeignKey("reference_models.id"), nullable=False),
+        sa.Column("person", sa.Text, nullable=False),
+        sa.Column("at", sa.DateTime, nullable=False),
+        sa.Column("meaning", sa.Text, nullable=False),
+        sa.Column("reason", sa.Text, nullable=False),
+    )
+    op.create_index("ix_approvals_model", "approvals", ["model_id"])
     with op.batch_alter_table("verdicts") as batch:
         batch.alter_column("flag_id", existing_type=sa.Integer, nullable=True)
         batch.add_column(sa.Column("signal_id", sa.Integer, sa.ForeignKey("signals.id", name="fk_verdicts_signal")))
@@ -113,4 +124,6 @@ def downgrade() -> None:
     with op.batch_alter_table("verdicts") as batch:
         batch.drop_column("signal_id")
         batch.alter_column("flag_id", existing_type=sa.Integer, nullable=False)
+    op.drop_index("ix_approvals_model", table_name="approvals")
+    op.drop_table("approvals")
     op.drop_table("users")
