@@ -18,6 +18,10 @@ from ..io import read_sidecar
 from ..triage import subject_words
 from ..validation import report_lines, validate
 
+#: The demo's people: a technician, a method owner and an admin (all invented).
+DEMO_USERS = (("demo-tech", "technician", "Demo Technician"), ("demo-owner", "method_owner", "Demo Method Owner"),
+              ("demo-admin", "admin", "Demo Admin"))
+
 __all__ = ["register", "run", "run_demo", "signal_lines", "carrier_calibration"]
 
 
@@ -144,6 +148,22 @@ def run_demo(out, *, scenario: str = "default", seed: int | None = None, jobs: i
              f"{calibration['rmsecv']:.2f} µm over lots of {calibration['y_min']:.1f}–{calibration['y_max']:.1f} µm")
         for lot, pred, true in calibration["by_lot"]:
             echo(f"  lot {lot}: predicted {pred:6.2f} µm, measured {true:6.2f} µm")
+    echo("")
+    # People for the dashboard's sign-in, made after the demo's own build (which is recorded as the demo's);
+    # their passwords are random and shown only here.
+    import secrets
+
+    from ..store.users import add_user
+
+    made = []
+    with Store.open(store_url) as store, store.write() as conn:
+        for name, role, full in DEMO_USERS:
+            password = secrets.token_urlsafe(12)
+            add_user(conn, name, role=role, full_name=full, password=password, by="harken demo")
+            made.append((name, role, password))
+    echo("sign-in for the dashboard (random passwords, shown once; `harken user set-password` changes them):")
+    for name, role, password in made:
+        echo(f"  {name:<12} {role:<13} {password}")
     echo("")
     echo(f"store: {store_url}; results per actuation: {out / 'results.csv'}")
     echo(f"demo finished in {time.perf_counter() - t0:.1f} s")

@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import re
 
-from . import about, actuation, lots, references, rigs, today, trajectories
+from . import about, actuation, audit, lots, references, rigs, today, trajectories
 
-VIEWS = {m.NAME: m for m in (today, lots, trajectories, rigs, actuation, references, about)}
+VIEWS = {m.NAME: m for m in (today, lots, trajectories, rigs, actuation, references, audit, about)}
 
 _ACTUATION = re.compile(r"^/actuation/(?P<actuation_id>\d+)/?$")
 

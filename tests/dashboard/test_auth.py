@@ -141,3 +141,15 @@ def test_a_trusted_header_signs_in_only_from_the_trusted_proxy(people, tmp_path)
                      environ_base={"REMOTE_ADDR": "10.0.0.66"}).status_code == 302
     r = other.get("/", headers={"X-Remote-User": "mallory"}, environ_base=proxy)
     assert r.status_code == 403 and "no active account" in r.get_data(as_text=True)
+
+
+def test_the_audit_trail_is_read_only_by_method_owners_even_with_open_reading(people, tmp_path):
+    client = _app(people, tmp_path, open_reading=True).server.test_client()
+    body = {"output": "audit-table.children", "outputs": {"id": "audit-table", "property": "children"},
+            "inputs": [{"id": "audit-person", "property": "value", "value": None}],
+            "state": [{"id": "app-user", "property": "data", "value": None}]}
+    assert client.post("/_dash-update-component", json=body).status_code == 403
+    _sign_in(client, "tom")
+    r = client.post("/_dash-update-component", json=body | {"state": [
+        {"id": "app-user", "property": "data", "value": "tom"}]})
+    assert r.status_code == 403 and "role technician does not include method_owner" in r.get_data(as_text=True)

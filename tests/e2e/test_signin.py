@@ -98,3 +98,24 @@ def test_five_wrong_passwords_lock_the_account(page, writable_server):
     sign_in(page, writable_server, "ada")  # the right one, too late
     page.wait_for_selector("#signin-error:has-text('Too many failed sign-ins for ada')")
     assert "/signin" in page.url or page.locator("#signin-form").count() == 1
+
+
+def test_the_audit_view_is_for_method_owners_and_filters_the_trail(page, writable_server):
+    sign_in(page, writable_server, "tom")
+    _settle(page)
+    assert page.locator("#app-nav-audit").count() == 0  # not in a technician's menu
+    page.goto(writable_server + "/audit")
+    _settle(page)
+    page.wait_for_selector("#audit-who:has-text('method owners and admins')")
+    page.click("#app-signout")
+    sign_in(page, writable_server, "ada", next_path="/audit")
+    _settle(page)
+    page.wait_for_selector("#app-nav-audit")
+    page.wait_for_selector("#audit-rows tbody tr")
+    texts = page.locator("#audit-rows tbody tr").all_inner_texts()
+    assert any("auth.signin" in t and "ada" in t for t in texts) and any("user.add" in t for t in texts)
+    page.click("#audit-action")
+    page.click("text=auth.")
+    page.wait_for_function("() => [...document.querySelectorAll('#audit-rows tbody tr')].every("
+                           "r => r.innerText.includes('auth.'))")
+    assert page.errors == []

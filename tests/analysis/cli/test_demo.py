@@ -35,6 +35,16 @@ def test_demo_runs_end_to_end_and_flags_every_recording_fault(tmp_path):
     pred = table["dose_release.predicted_carrier_d50_um"]
     assert pred[table["condition"] == "coarse_carrier"].mean() > pred[table["reference"]].mean() + 1.0
     assert "carrier size from the dose-release sound" in text
+    # the demo's people, each with the password printed once, which signs them in
+    from analysis.store.users import check_password
+
+    printed = {ln.split()[0]: ln.split() for ln in lines if ln.startswith("  demo-")}
+    assert {n: v[1] for n, v in printed.items()} == {"demo-tech": "technician", "demo-owner": "method_owner",
+                                                     "demo-admin": "admin"}
+    with Store.open(f"sqlite:///{tmp_path / 'harken.db'}") as store, store.read() as conn:
+        for name, (_, role, password) in printed.items():
+            assert check_password(conn, name, password).role == role
+    assert len({v[2] for v in printed.values()}) == 3  # random, not one shared password
     # a second run reuses the generated recordings
     again = []
     run_demo(tmp_path, scenario="small", jobs=2, echo=again.append)
