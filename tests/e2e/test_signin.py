@@ -119,3 +119,26 @@ def test_the_audit_view_is_for_method_owners_and_filters_the_trail(page, writabl
     page.wait_for_function("() => [...document.querySelectorAll('#audit-rows tbody tr')].every("
                            "r => r.innerText.includes('auth.'))")
     assert page.errors == []
+
+
+def test_a_technician_reviews_a_flag_on_the_actuation_view(page, writable_server, store_copy):
+    from analysis.store import Store
+
+    with Store.open(store_copy, create=False) as store:
+        acts = store.signals(levels=("actuation",))
+    aid = int(acts["actuation_id"].iloc[0])
+    sign_in(page, writable_server, "tom", next_path=f"/actuation/{aid}")
+    _settle(page)
+    page.wait_for_selector("#actuation-review-submit")
+    assert "awaiting" in page.eval_on_selector("#actuation-review-target", "e => e.textContent")
+    page.click("#actuation-review-verdict input[value='recording']")
+    page.click("#actuation-review-submit")
+    page.wait_for_selector("#actuation-review-status:has-text('Recorded: recording problem, by tom')")
+    page.reload()
+    _settle(page)
+    page.wait_for_selector("#actuation-reviewed tbody tr")
+    assert "recording problem" in page.locator("#actuation-reviewed tbody tr").first.inner_text()
+    with Store.open(store_copy, create=False) as store:
+        exported = store.export_actuations()
+    assert "recording problem (tom" in exported.loc[exported["actuation_id"] == aid, "verdict"].iloc[0]
+    assert page.errors == []
