@@ -133,7 +133,24 @@ def _place(src: Path, dest: Path, *, content_addressed: bool = True) -> None:
         return
     tmp = dest.with_name(f".{dest.name}.{os.getpid()}.tmp")
     shutil.copyfile(src, tmp, follow_symlinks=False)
+    _fsync(tmp)  # the copy's bytes on disk before its name, and its name before the store's commit points at it
     os.replace(tmp, dest)
+    _fsync(dest.parent, folder=True)
+
+
+def _fsync(path: Path, *, folder: bool = False) -> None:
+    """Flush a file's (or a folder's entries') data to the disk. A folder cannot be opened for this on every
+    platform (Windows): there the rename is as durable as the file system makes it."""
+    try:
+        fd = os.open(path, os.O_RDONLY | (getattr(os, "O_DIRECTORY", 0) if folder else 0))
+    except OSError:
+        if folder:
+            return
+        raise
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
 
 
 def _remove_source(path: Path, root: Path | None) -> None:

@@ -229,3 +229,44 @@ def test_the_pass_summary_names_every_count_that_is_not_zero():
     loud = str(IngestSummary(analysed=1, lost=2, vanished=4, elapsed_s=1.0))
     assert "2 taken over by another worker while analysed" in loud
     assert "4 gone from the inbox before they were read" in loud
+
+
+def test_archive_copies_reach_the_disk_before_the_commit_that_names_them(sqlite_url, tmp_path, monkeypatch):
+    # The real os.fsync runs; the spy only notes which file or folder was flushed, and when the batch committed.
+    import os
+
+    import analysis.worker as worker
+    from analysis.store import Store as RealStore
+
+    events = []
+    real_fsync, real_open = os.fsync, os.open
+    opened = {}
+
+    def spy_open(path, flags, *a, **k):
+        fd = real_open(path, flags, *a, **k)
+        opened[fd] = str(path)
+        return fd
+
+    def spy_fsync(fd):
+        events.append(("fsync", opened.get(fd, "?")))
+        return real_fsync(fd)
+
+    real_commit = RealStore.commit_analyses
+
+    def spy_commit(self, *a, **k):
+        events.append(("commit", ""))
+        return real_commit(self, *a, **k)
+
+    monkeypatch.setattr(worker.os, "open", spy_open)
+    monkeypatch.setattr(worker.os, "fsync", spy_fsync)
+    monkeypatch.setattr(RealStore, "commit_analyses", spy_commit)
+    inbox = tmp_path / "inbox"
+    src = write_recording(inbox / "Site" / "Rig", "r1", seed=5)
+    h = hashlib.sha256(src.read_bytes()).hexdigest()
+    run_worker(inbox, sqlite_url, once=True, jobs=1, files_dir=tmp_path)
+    folder = str(tmp_path / "harken-archive" / h[:2])
+    commit = events.index(("commit", ""))
+    flushed = [p for kind, p in events[:commit] if kind == "fsync"]
+    assert any(p.endswith(f".{h}.flac.{os.getpid()}.tmp") for p in flushed), flushed  # the copy's bytes
+    assert folder in flushed  # and the folder entry that names it
+    assert (tmp_path / "harken-archive" / h[:2] / f"{h}.flac").exists()
