@@ -183,6 +183,23 @@ def _public(reason: str, path: Path, name: str, root: Path | None) -> str:
     return printable_name(text)
 
 
+def stopped_here(holder: str) -> bool:
+    """True when a claim's holder ("HOST:PID", as workers name themselves) is a process on this host that no longer
+    runs, so its claims need not wait out the claim timeout. Another host's worker, or a process that runs (or
+    whose state this user may not see), is not known to have stopped. A PID reused by a new process reads as
+    running: the claim then waits for its timeout, the safe side."""
+    host, sep, pid = str(holder).rpartition(":")
+    if not sep or host != socket.gethostname() or not pid.isdigit() or int(pid) == os.getpid():
+        return False
+    try:
+        os.kill(int(pid), 0)
+    except ProcessLookupError:
+        return True
+    except (PermissionError, OverflowError, OSError):
+        return False
+    return False
+
+
 def sweep_temporary(folder: Path, *, older_than_s: float) -> int:
     """Remove the temporary copies (``.NAME.PID.tmp``) a killed worker left in ``folder``; returns how many."""
     if not folder.is_dir():
@@ -394,7 +411,7 @@ def process_files(
     def claim_all(entries):
         """Claims of (hash, name, size) entries, in one transaction; one at a time when that fails."""
         try:
-            return store.claim_many(entries, worker=worker_id, claim_timeout_s=claim_timeout_s)
+            return store.claim_many(entries, worker=worker_id, claim_timeout_s=claim_timeout_s, gone=stopped_here)
         except StoreError:
             if len(entries) == 1:
                 raise

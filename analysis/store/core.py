@@ -178,10 +178,11 @@ class Store:
             return writes.claim(conn, content_hash, original_name, size_bytes, worker=worker,
                                 claim_timeout_s=claim_timeout_s)
 
-    def claim_many(self, entries, *, worker: str, claim_timeout_s: float) -> list[Claim]:
-        """``claim`` for each (content_hash, original_name, size_bytes) of ``entries``, in one transaction."""
+    def claim_many(self, entries, *, worker: str, claim_timeout_s: float, gone=None) -> list[Claim]:
+        """``claim`` for each (content_hash, original_name, size_bytes) of ``entries``, in one transaction; ``gone``
+        as writes.claim (a worker known to have stopped loses its claims at once)."""
         with self.write() as conn:
-            return [writes.claim(conn, h, name, size, worker=worker, claim_timeout_s=claim_timeout_s)
+            return [writes.claim(conn, h, name, size, worker=worker, claim_timeout_s=claim_timeout_s, gone=gone)
                     for h, name, size in entries]
 
     def commit_analyses(self, items, *, worker: str) -> list[int | None]:

@@ -55,8 +55,10 @@ def _insert_ignore(conn, table, values: dict) -> int | None:
 
 
 # ------------------------------------------------------------------------------------------------------ claims
-def claim(conn, content_hash, original_name, size_bytes, *, worker, claim_timeout_s) -> Claim:
-    """Register a recording by its content hash and claim it for ``worker`` (see Claim)."""
+def claim(conn, content_hash, original_name, size_bytes, *, worker, claim_timeout_s, gone=None) -> Claim:
+    """Register a recording by its content hash and claim it for ``worker`` (see Claim). ``gone``: a function of
+    a claim's holder (its worker name) that is True when that worker is known to have stopped (a process on this
+    host that no longer runs): its claim is taken over at once instead of after ``claim_timeout_s``."""
     now = utc_now()
     original_name = text(original_name)
     new_id = _insert_ignore(conn, recordings, dict(
@@ -71,7 +73,8 @@ def claim(conn, content_hash, original_name, size_bytes, *, worker, claim_timeou
     ).one()
     if row.status != "claimed":
         return Claim("duplicate", row.id, row.status, row.original_name)
-    if row.claimed_at is not None and row.claimed_at > now - timedelta(seconds=claim_timeout_s):
+    fresh = row.claimed_at is not None and row.claimed_at > now - timedelta(seconds=claim_timeout_s)
+    if fresh and not (gone is not None and row.claimed_by != worker and gone(row.claimed_by)):
         return Claim("busy", row.id, "claimed", row.original_name)
     # Stale: take it over, but only if nobody else did since we looked (compare and set).
     taken = conn.execute(

@@ -270,3 +270,39 @@ def test_archive_copies_reach_the_disk_before_the_commit_that_names_them(sqlite_
     assert any(p.endswith(f".{h}.flac.{os.getpid()}.tmp") for p in flushed), flushed  # the copy's bytes
     assert folder in flushed  # and the folder entry that names it
     assert (tmp_path / "harken-archive" / h[:2] / f"{h}.flac").exists()
+
+
+def test_claims_of_a_stopped_worker_on_this_host_are_taken_over_at_once(sqlite_url, tmp_path):
+    # Two recordings were claimed a moment ago: one by a process of this host that has ended (a worker killed
+    # mid-batch), one by a process that still runs. A new worker takes the first at once, not after the 300 s
+    # claim timeout, and leaves the second to its holder.
+    import socket
+    import subprocess
+    import sys
+
+    from analysis.worker import stopped_here
+
+    host = socket.gethostname()
+    ended = subprocess.Popen([sys.executable, "-c", "pass"])
+    ended.wait()
+    running = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    try:
+        inbox = tmp_path / "inbox"
+        a = write_recording(inbox / "S" / "R", "a", seed=11)
+        b = write_recording(inbox / "S" / "R", "b", seed=12)
+        with Store.open(sqlite_url, files_dir=tmp_path) as store:
+            for path, pid in ((a, ended.pid), (b, running.pid)):
+                data = path.read_bytes()
+                c = store.claim(hashlib.sha256(data).hexdigest(), f"S/R/{path.name}", len(data),
+                                worker=f"{host}:{pid}", claim_timeout_s=300)
+                assert c.kind == "new"
+        assert stopped_here(f"{host}:{ended.pid}") and not stopped_here(f"{host}:{running.pid}")
+        assert not stopped_here(f"elsewhere.example:{ended.pid}") and not stopped_here("no-pid-here")
+        run_worker(inbox, sqlite_url, once=True, jobs=1, files_dir=tmp_path)
+        with Store.open(sqlite_url, files_dir=tmp_path) as store:
+            recs = store.recordings().set_index("original_name")
+        assert recs.at["S/R/a.flac", "status"] == "analysed"
+        assert recs.at["S/R/b.flac", "status"] == "claimed"
+    finally:
+        running.kill()
+        running.wait()
