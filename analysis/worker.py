@@ -14,6 +14,7 @@ import os
 import shutil
 import socket
 import sys
+import threading
 import time
 from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -181,6 +182,34 @@ def _public(reason: str, path: Path, name: str, root: Path | None) -> str:
     if root is not None:
         text = text.replace(str(root).rstrip("/") + "/", "")
     return printable_name(text)
+
+
+class Heartbeat:
+    """Renews a worker's live claims every ``interval_s`` in a thread of its own while a pass runs, so that a
+    recording whose analysis takes longer than the claim timeout is not taken over by another worker; a worker
+    that stops (killed) stops beating, and its claims age out. A failed beat is logged and tried again."""
+
+    def __init__(self, store, worker_id: str, *, interval_s: float, log: Callable[[str], None] = lambda m: None):
+        self.store, self.worker_id, self.interval_s, self.log = store, worker_id, float(interval_s), log
+        self.beats = 0
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, name="harken-heartbeat", daemon=True)
+
+    def _run(self) -> None:
+        while not self._stop.wait(self.interval_s):
+            try:
+                self.store.refresh_claims(worker=self.worker_id)
+                self.beats += 1
+            except Exception as exc:  # noqa: BLE001 - a missed beat is not a reason to stop the worker
+                self.log(f"heartbeat: could not renew the claims of {self.worker_id} ({exc})")
+
+    def __enter__(self) -> Heartbeat:
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self._stop.set()
+        self._thread.join(timeout=max(5.0, self.interval_s))
 
 
 def stopped_here(holder: str) -> bool:
@@ -420,6 +449,9 @@ def process_files(
     pending: dict = {}
     window = max(2, 2 * jobs)
     seen: dict[str, str] = {}  # content hash -> the name it was first seen under in this pass
+    # live claims are renewed three times per claim timeout
+    beat = Heartbeat(store, worker_id, interval_s=max(0.05, claim_timeout_s / 3.0), log=log)
+    beat.__enter__()
     try:
         for chunk in _chunks(files, batch_size):
             hashed, refused = [], []
@@ -499,6 +531,7 @@ def process_files(
         flush()  # what is analysed is kept; claims of the rest are taken up again after the claim timeout
         raise
     finally:
+        beat.__exit__(None, None, None)
         bar.close()
     summary.elapsed_s = time.perf_counter() - t0
     return summary

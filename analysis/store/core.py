@@ -185,6 +185,11 @@ class Store:
             return [writes.claim(conn, h, name, size, worker=worker, claim_timeout_s=claim_timeout_s, gone=gone)
                     for h, name, size in entries]
 
+    def refresh_claims(self, *, worker: str) -> int:
+        """Renew every live claim of ``worker`` (its heartbeat); returns how many."""
+        with self.write() as conn:
+            return writes.refresh_claims(conn, worker=worker)
+
     def commit_analyses(self, items, *, worker: str) -> list[int | None]:
         """Write analysed recordings (``writes.Analysed`` items) in one transaction, each whole; returns the
         actuation id per item, or None where the claim was lost to another worker (nothing of it written)."""

@@ -116,6 +116,13 @@ def _finish(conn, recording_id, worker, **values) -> bool:
     return done == 1
 
 
+def refresh_claims(conn, *, worker) -> int:
+    """The heartbeat: every live claim of ``worker`` is renewed (claimed_at = now); returns how many."""
+    return conn.execute(recordings.update().where(and_(recordings.c.status == "claimed",
+                                                       recordings.c.claimed_by == worker))
+                        .values(claimed_at=utc_now())).rowcount
+
+
 def release_claim(conn, recording_id, *, worker):
     conn.execute(recordings.delete().where(and_(recordings.c.id == recording_id, recordings.c.status == "claimed",
                                                 recordings.c.claimed_by == worker)))
