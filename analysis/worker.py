@@ -184,6 +184,28 @@ def _public(reason: str, path: Path, name: str, root: Path | None) -> str:
     return printable_name(text)
 
 
+class ActiveModels:
+    """The active models per profile, as the worker scores with them: loaded once, and loaded again when the
+    store's active model ids change (checked at most every ``check_s``), so a recording analysed after a
+    reference build or approval is scored with the new version even in a pass that was running."""
+
+    def __init__(self, store, *, check_s: float = 2.0):
+        self.store, self.check_s = store, float(check_s)
+        self._models: dict[str, dict] = {}
+        self._ids: dict[str, list[int]] = {}
+        self._checked: dict[str, float] = {}
+
+    def get(self, profile: str) -> dict:
+        now = time.monotonic()
+        if profile not in self._models or now - self._checked.get(profile, -1e9) >= self.check_s:
+            ids = self.store.active_model_ids(profile)
+            if profile not in self._models or ids != self._ids.get(profile):
+                self._models[profile] = self.store.active_models(profile)
+                self._ids[profile] = ids
+            self._checked[profile] = now
+        return self._models[profile]
+
+
 class Heartbeat:
     """Renews a worker's live claims every ``interval_s`` in a thread of its own while a pass runs, so that a
     recording whose analysis takes longer than the claim timeout is not taken over by another worker; a worker
@@ -291,7 +313,7 @@ def process_files(
     t0 = time.perf_counter()
     show = sys.stderr.isatty() if progress is None else progress
     bar = _Progress(total, show, log)
-    models: dict[str, dict] = {}  # profile -> active models, read once per pass
+    models = ActiveModels(store)  # re-read when a reference build or approval changes them, mid-pass too
 
     buffer: list = []  # (Analysed, path, name, hash): archived and scored, waiting for the next batch commit
     buffered_since = [0.0]
@@ -356,9 +378,7 @@ def process_files(
         try:
             if result.sidecar is None:
                 raise AnalysisError(f"{name}: no sidecar, so no site, rig, lot or unit to store")
-            if result.profile not in models:
-                models[result.profile] = store.active_models(result.profile)
-            scored = score_result(result, models[result.profile])
+            scored = score_result(result, models.get(result.profile))
         except StoreError:
             raise
         except Exception as exc:  # noqa: BLE001 - a model that cannot score this recording: quarantine, go on

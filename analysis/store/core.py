@@ -319,6 +319,13 @@ class Store:
         with self.read() as conn:
             return queries.load_model(conn, model_id, where=self.url)
 
+    def active_model_ids(self, profile: str) -> list[int]:
+        """Ids of the profile's active models (a cheap check of whether they changed)."""
+        from .queries._base import active_model_ids
+
+        with self.read() as conn:
+            return active_model_ids(conn, profile)
+
     def active_models(self, profile: str) -> dict:
         """{event: (model_id, ReferenceModel)} of the profile's active models."""
         with self.read() as conn:

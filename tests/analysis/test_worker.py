@@ -327,3 +327,20 @@ def test_a_heartbeat_keeps_live_claims_and_a_stopped_one_lets_them_go(store_url,
         assert store.claim("b" * 64, "y.flac", 10, worker="host-c:3", claim_timeout_s=0.6).kind == "retry"
         time.sleep(0.8)
         assert store.claim("a" * 64, "x.flac", 10, worker="host-c:3", claim_timeout_s=0.6).kind == "retry"
+
+
+def test_the_worker_scores_with_a_reference_built_while_it_runs(store_copy):
+    # The worker's model cache re-reads the active models when their ids change (checked every check_s): a
+    # recording analysed after a build in the middle of a pass is scored with the new version.
+    from analysis.references import build_reference
+    from analysis.worker import ActiveModels
+
+    with Store.open(store_copy, create=False) as store:
+        fresh, lazy = ActiveModels(store, check_s=0.0), ActiveModels(store, check_s=3600.0)
+        before = {e: mid for e, (mid, _) in fresh.get("demo-dpi").items()}
+        assert {e: mid for e, (mid, _) in lazy.get("demo-dpi").items()} == before
+        (made,) = build_reference(store, "demo-dpi", ["metering_click"], ["L2601", "L2602"])
+        after = {e: mid for e, (mid, _) in fresh.get("demo-dpi").items()}
+        assert after == {**before, "metering_click": made.model_id} and after != before
+        # within its check interval the cache does not ask the store at all
+        assert {e: mid for e, (mid, _) in lazy.get("demo-dpi").items()} == before
