@@ -66,7 +66,7 @@ def _secret_key(cache_dir: Path, given: str | None) -> str:
 def create_app(store_url=None, *, cache_dir=None, meeting: bool = False, refresh_s: float = 30.0,
                secret_key: str | None = None, title: str = "Harken", open_reading: bool = False,
                idle_minutes: float = 30.0, trusted_header: str | None = None, trusted_proxies=(),
-               secure_cookies: bool = False) -> Dash:
+               secure_cookies: bool = False, files_dir=None) -> Dash:
     """A Dash app showing the results store at ``store_url`` (a SQLAlchemy URL or a SQLite file path).
 
     cache_dir: the folder for the background-job cache and the drill-down cache, shared by all server
@@ -75,8 +75,9 @@ def create_app(store_url=None, *, cache_dir=None, meeting: bool = False, refresh
     Sign-in (dashboard.auth): open_reading lets anyone read without signing in (writing always needs a
     signed-in person with the role); idle_minutes ends an idle session; trusted_header (with trusted_proxies,
     the addresses it is accepted from) takes the user name from a reverse proxy; secure_cookies for HTTPS.
+    files_dir: the folder of the archive (the store's default: beside a SQLite store, else the working folder).
     """
-    store = Store.open(store_url, create=False)
+    store = Store.open(store_url, files_dir=files_dir, create=False)
     cache_dir = Path(cache_dir) if cache_dir is not None else store.files_dir / f"{store.stem}-dashboard-cache"
     cache_dir.mkdir(parents=True, exist_ok=True)
     background = diskcache.Cache(str(cache_dir / "background"), size_limit=256 * 2**20)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 
 from ..errors import ParameterError
-from ._common import add_store
+from ._common import add_files, add_store
 
 __all__ = ["register", "serve", "run"]
 
@@ -13,6 +13,7 @@ __all__ = ["register", "serve", "run"]
 def register(sub) -> None:
     p = sub.add_parser("serve", help="serve the dashboard on a results store")
     add_store(p)
+    add_files(p)
     p.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1: this machine only)")
     p.add_argument("--port", type=int, default=8050)
     p.add_argument("--cache-dir", default=None, metavar="DIR",
@@ -48,7 +49,7 @@ def network_warning(host: str, port: int, *, open_reading: bool = False) -> str 
 
 def serve(store=None, *, host="127.0.0.1", port=8050, cache_dir=None, meeting=False, refresh_s=30.0,
           threads: int = 8, open_reading: bool = False, idle_minutes: float = 30.0, trusted_header=None,
-          trusted_proxies=(), secure_cookies: bool = False, echo=print):
+          trusted_proxies=(), secure_cookies: bool = False, files_dir=None, echo=print):
     """Build the dashboard on ``store`` and serve it with waitress (a production WSGI server, pure Python) until
     interrupted."""
     import waitress
@@ -64,7 +65,7 @@ def serve(store=None, *, host="127.0.0.1", port=8050, cache_dir=None, meeting=Fa
                              "from the site's reverse proxy")
     app = create_app(store, cache_dir=cache_dir, meeting=meeting, refresh_s=refresh_s, open_reading=open_reading,
                      idle_minutes=idle_minutes, trusted_header=trusted_header, trusted_proxies=tuple(trusted_proxies),
-                     secure_cookies=secure_cookies)
+                     secure_cookies=secure_cookies, files_dir=files_dir)
     warning = network_warning(host, port, open_reading=open_reading)
     if warning:
         print(warning, file=sys.stderr, flush=True)
@@ -77,4 +78,5 @@ def run(args) -> int:
     return serve(args.store, host=args.host, port=args.port, cache_dir=args.cache_dir, meeting=args.meeting,
                  refresh_s=args.refresh_s, threads=args.threads, open_reading=args.open_reading,
                  idle_minutes=args.idle_minutes, trusted_header=args.trusted_header,
-                 trusted_proxies=tuple(args.trusted_proxy), secure_cookies=args.secure_cookies)
+                 trusted_proxies=tuple(args.trusted_proxy), secure_cookies=args.secure_cookies,
+                 files_dir=args.files)

@@ -15,6 +15,27 @@ def test_serve_defaults_and_options():
     assert (a.store, a.host, a.port) == (None, "127.0.0.1", 8050) and a.func is serve_cmd.run
     a = build_parser().parse_args(["serve", "--store", "sqlite:///x.db", "--port", "9000", "--meeting"])
     assert a.store == "sqlite:///x.db" and a.port == 9000 and a.meeting
+    a = build_parser().parse_args(["serve", "--files", "/srv/harken", "--open-reading", "--trusted-header", "X-U",
+                                   "--trusted-proxy", "10.0.0.2", "--trusted-proxy", "10.0.0.3", "--idle-minutes",
+                                   "10", "--secure-cookies"])
+    assert a.files == "/srv/harken" and a.open_reading and a.trusted_proxy == ["10.0.0.2", "10.0.0.3"]
+    assert (a.trusted_header, a.idle_minutes, a.secure_cookies) == ("X-U", 10.0, True)
+
+
+def test_the_dashboard_finds_the_archive_where_it_is_told(tmp_path):
+    # a PostgreSQL store's archive lives where --files says; the dashboard must read it from there too
+    from dashboard import create_app
+
+    url = f"sqlite:///{tmp_path / 'b.db'}"
+    fill_synthetic_store(url, 20, n_lots=2)
+    app = create_app(url, cache_dir=tmp_path / "c", open_reading=True, files_dir=tmp_path / "shared")
+    assert app.harken.store.files_dir == tmp_path / "shared"
+    import pytest
+
+    from analysis.errors import ParameterError
+
+    with pytest.raises(ParameterError, match="--trusted-header needs at least one --trusted-proxy"):
+        serve_cmd.serve(url, trusted_header="X-U")
 
 
 def test_bench_dashboard_is_a_bench_command():
