@@ -17,7 +17,7 @@ import numpy as np
 from .monitor import ReferenceModel
 from .monitor.levels import group_limits_from_model
 from .profiles import find_profile
-from .scoring import FeatureSet, current_user, fit_event_model
+from .scoring import FeatureSet, current_user, fit_event_model, resonance_problem, scoring_block
 from .signal.resonance import block_names, block_values
 from .store import Store, StoreError
 from .store.codec import missing_event, scored_events
@@ -36,20 +36,6 @@ def score_levels(model: ReferenceModel, X: np.ndarray, resonance: np.ndarray | N
     return scored_events(model.score(np.asarray(X, dtype=np.float32).astype(float), resonance=block))
 
 
-def _ranges_problem(model: ReferenceModel, found) -> str | None:
-    """Why an event's resonances cannot be scored by ``model``'s resonance block, or None."""
-    if not model.has_resonance:
-        return None
-    want = [list(r) for r in (getattr(model, "metadata_", None) or {}).get("resonances_hz", ())]
-    have = [[r.low_hz, r.high_hz] for r in found]
-    if not have:
-        return "the model has a resonance block and the event has no resonance features (analysed before its " \
-               "profile named resonance ranges: re-analyse it)"
-    if want and have != want:
-        return f"the model's resonance ranges {want} differ from the event's {have}"
-    return None
-
-
 def score_result(result, models: dict) -> dict:
     """{event: (model_id, ScoredEvent)} for one RecordingResult under the active models {event: (id, model)}."""
     scored = {}
@@ -58,12 +44,11 @@ def score_result(result, models: dict) -> dict:
         if feats is None or feats.levels_db.shape != (model.n_slices_, model.n_bands_):
             scored[event] = (model_id, missing_event(_missing_reason(result, event, feats, model)))
             continue
-        problem = _ranges_problem(model, feats.resonances)
+        problem = resonance_problem(model, feats.resonances)
         if problem:
             scored[event] = (model_id, missing_event(f"event {event!r} not scored: {problem}"))
             continue
-        scored[event] = (model_id, score_levels(model, feats.levels_db[None],
-                                                block_values(feats.resonances)[None])[0])
+        scored[event] = (model_id, score_levels(model, feats.levels_db[None], scoring_block(model, feats))[0])
     return scored
 
 
@@ -207,7 +192,7 @@ def rescore(store, profile: str, *, events: Sequence[str] | None = None, model_i
                     items.append((r["actuation_id"], missing_event(
                         f"event {event!r} not scored: the model expects {shape[0]} slices x {shape[1]} bands, "
                         f"the recording has {r['n_slices']} x {r['n_bands']}")))
-                elif (problem := _ranges_problem(model, r["resonances"])) is not None:
+                elif (problem := resonance_problem(model, r["resonances"])) is not None:
                     items.append((r["actuation_id"], missing_event(f"event {event!r} not scored: {problem}")))
                 else:
                     ok_ids.append(r["actuation_id"])

@@ -36,6 +36,7 @@ __all__ = [
     "monitor_result",
     "model_metadata_problem",
     "scoring_block",
+    "resonance_problem",
 ]
 
 def find_recordings(paths: Iterable[str | Path]) -> list[Path]:
@@ -246,6 +247,21 @@ def load_models(paths: Iterable[str | Path]) -> dict[str, ReferenceModel]:
     return models
 
 
+def resonance_problem(model: ReferenceModel, found) -> str | None:
+    """Why an event's resonances (analysis.signal.resonance.Resonance, as analysed or stored) cannot be scored by
+    ``model``'s resonance block, or None (also for a model without one)."""
+    if not model.has_resonance:
+        return None
+    want = [list(r) for r in (getattr(model, "metadata_", None) or {}).get("resonances_hz", ())]
+    have = [[r.low_hz, r.high_hz] for r in found]
+    if not have:
+        return ("the model has a resonance block and the event has no resonance features (analysed before its "
+                "profile named resonance ranges: re-analyse it)")
+    if want and have != want:
+        return f"the model's resonance ranges {want} differ from the event's {have}"
+    return None
+
+
 def scoring_block(model: ReferenceModel, feats) -> np.ndarray | None:
     """The (1, p) resonance block to score one event's features with, or None when the model has no block."""
     if not model.has_resonance:
@@ -259,11 +275,8 @@ def model_metadata_problem(model: ReferenceModel, result: RecordingResult, event
     if meta.get("profile") not in (None, result.profile):
         return f"the model is for profile {meta.get('profile')!r}, the recording uses {result.profile!r}"
     feats = result.features.get(event)
-    if feats is not None and model.has_resonance:
-        have = tuple(tuple(r) for r in meta.get("resonances_hz", ()))
-        here = tuple((r.low_hz, r.high_hz) for r in feats.resonances)
-        if have and here != have:
-            return f"the model's resonance ranges {list(have)} differ from the recording's {list(here)}"
+    if feats is not None and (problem := resonance_problem(model, feats.resonances)):
+        return problem
     if feats is not None and feats.levels_db.shape != (model.n_slices_, model.n_bands_):
         return (f"the model expects {model.n_slices_} slices x {model.n_bands_} bands, the recording has "
                 f"{feats.levels_db.shape[0]} x {feats.levels_db.shape[1]}")
