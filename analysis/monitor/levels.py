@@ -77,41 +77,17 @@ class MeanLimits:
 
 
 def variance_components(values, *, units, lots) -> tuple[float, float, float, float]:
-    """(grand centre, σ_lot², σ_u², σ_w²) of values grouped by unit within lot (module docstring)."""
+    """(grand centre, σ_lot², σ_u², σ_w²) of values grouped by unit within lot (module docstring): the one-feature
+    case of block_variance_components, whose matrix estimators reduce to these for p = 1."""
     v = np.asarray(values, dtype=float)
     u = np.asarray(units).astype(str)
     g = np.asarray(lots).astype(str)
     if v.ndim != 1 or u.shape != v.shape or g.shape != v.shape:
         raise ParameterError(f"values, units and lots must be 1-D of one length; got {v.shape}, {u.shape}, {g.shape}")
-    ok = np.isfinite(v)
-    v, u, g = v[ok], u[ok], g[ok]
-    if v.size < 3:
-        raise ParameterError(f"variance components need at least 3 finite values; got {v.size}")
-    key = np.char.add(np.char.add(g, "\x1f"), u)  # a unit is named within its lot
-    ukeys, uinv = np.unique(key, return_inverse=True)
-    n_u = np.bincount(uinv).astype(float)
-    mean_u = np.bincount(uinv, weights=v) / n_u
-    resid = v - mean_u[uinv]
-    df_w = v.size - ukeys.size
-    var_w = float(np.sum(resid**2) / df_w) if df_w > 0 else 0.0
-    lot_of_unit = np.array([k.split("\x1f", 1)[0] for k in ukeys])
-    lkeys, linv = np.unique(lot_of_unit, return_inverse=True)
-    k_l = np.bincount(linv).astype(float)  # units per lot
-    mean_l = np.bincount(linv, weights=mean_u) / k_l
-    dev = mean_u - mean_l[linv]
-    df_u = ukeys.size - lkeys.size
-    var_u = 0.0
-    if df_u > 0:
-        var_u = max(0.0, float(np.sum(dev**2) / df_u) - var_w * float(np.mean(1.0 / n_u)))
-    var_lot = 0.0
-    if lkeys.size > 1:
-        between = float(np.var(mean_l, ddof=1))
-        # A lot mean is the mean of its units' means: it carries (σ_u² + σ_w²/n)/k of unit-level variance.
-        explained = float(np.mean((var_u + var_w * np.array([np.mean(1.0 / n_u[linv == i]) for i in
-                                                            range(lkeys.size)])) / k_l))
-        var_lot = max(0.0, between - explained)
-    centre = float(np.mean(mean_l))
-    return centre, var_lot, var_u, var_w
+    if int(np.isfinite(v).sum()) < 3:
+        raise ParameterError(f"variance components need at least 3 finite values; got {int(np.isfinite(v).sum())}")
+    centre, var_lot, var_u, var_w = block_variance_components(v[:, None], units=u, lots=g)
+    return float(centre[0]), float(var_lot[0, 0]), float(var_u[0, 0]), float(var_w[0, 0])
 
 
 def fit_mean_limits(values, *, units, lots, alpha: float) -> MeanLimits:

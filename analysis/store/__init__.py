@@ -25,6 +25,7 @@ from .core import DEFAULT_STORE_FILE, Store, default_store_url, safe_url
 from .errors import StoreError
 from .migrate import SCHEMA_VERSION
 from .types import (
+    APPROVAL_MEANINGS,
     REVIEW_VERDICTS,
     STATISTICS,
     VERDICTS,
@@ -39,6 +40,6 @@ from .types import (
 
 __all__ = [
     "Store", "StoreError", "queries", "Claim", "Analysed", "ScoredEvent", "Trajectory", "Statistic", "STATISTICS",
-    "statistic", "Filters", "VERDICTS", "REVIEW_VERDICTS", "SCHEMA_VERSION", "DEFAULT_STORE_FILE",
+    "statistic", "Filters", "VERDICTS", "REVIEW_VERDICTS", "APPROVAL_MEANINGS", "SCHEMA_VERSION", "DEFAULT_STORE_FILE",
     "default_store_url", "safe_url",
 ]

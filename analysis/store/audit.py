@@ -45,13 +45,6 @@ def _lock(conn) -> None:
         conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": _LOCK})
 
 
-def _set_head(conn, row_id: int, sha: str) -> None:
-    info = db.store_info
-    value = f"{row_id}:{sha}"
-    if conn.execute(info.update().where(info.c.key == HEAD_KEY).values(value=value)).rowcount == 0:
-        conn.execute(info.insert().values(key=HEAD_KEY, value=value))
-
-
 def append(conn, *, person: str, action: str, target: str = "", detail: dict | None = None) -> tuple[int, str]:
     """Append one audit row (inside the caller's write transaction); returns (id, its SHA-256)."""
     _lock(conn)
@@ -63,7 +56,7 @@ def append(conn, *, person: str, action: str, target: str = "", detail: dict | N
                prev_sha256=(last.row_sha256 if last and last.row_sha256 else GENESIS))
     row["row_sha256"] = row_digest(row)
     conn.execute(a.insert().values(**row))
-    _set_head(conn, row["id"], row["row_sha256"])
+    db.put_info(conn, HEAD_KEY, f"{row['id']}:{row['row_sha256']}")
     return row["id"], row["row_sha256"]
 
 

@@ -27,9 +27,10 @@ from sqlalchemy import (  # noqa: I001
     Table,
     Text,
     UniqueConstraint,
+    select,
 )
 
-__all__ = ["metadata", "TABLES", "utc_now"]
+__all__ = ["metadata", "TABLES", "utc_now", "put_info"]
 
 metadata = MetaData()
 
@@ -333,6 +334,16 @@ audit_log = Table(
 )
 
 TABLES = {t.name: t for t in metadata.sorted_tables}
+
+
+def put_info(conn, key: str, value: str) -> str | None:
+    """Set one store_info row (insert or update) inside the caller's transaction; returns the value it had."""
+    old = conn.execute(select(store_info.c.value).where(store_info.c.key == key)).scalar()
+    if old is None:
+        conn.execute(store_info.insert().values(key=key, value=value))
+    else:
+        conn.execute(store_info.update().where(store_info.c.key == key).values(value=value))
+    return old
 
 
 def utc_now() -> datetime:

@@ -18,10 +18,12 @@ import numpy as np
 from analysis.errors import ParameterError
 
 __all__ = ["Claim", "Analysed", "ScoredEvent", "Trajectory", "Statistic", "STATISTICS", "statistic", "Filters",
-           "VERDICTS", "REVIEW_VERDICTS"]
+           "VERDICTS", "REVIEW_VERDICTS", "APPROVAL_MEANINGS"]
 
 #: What a person may say of a flag.
 VERDICTS = ("confirmed", "false alarm", "recording", "rig", "lot", "unit", "other")
+#: The meanings a signed approval of a reference model can carry.
+APPROVAL_MEANINGS = ("approved for routine monitoring", "approved for investigation only")
 #: A review of a signal: what the person found, and the words shown for it. "no fault found" needs a comment.
 REVIEW_VERDICTS = {"unit": "confirmed - device or unit", "lot": "confirmed - lot", "rig": "confirmed - rig",
                    "recording": "recording problem", "no fault found": "no fault found"}

@@ -25,6 +25,7 @@ from .schema import (
     events,
     flags,
     lots,
+    put_info,
     qc_results,
     recordings,
     reference_models,
@@ -39,7 +40,7 @@ from .schema import (
     verdicts,
 )
 from .signals import refresh_signals
-from .types import REVIEW_VERDICTS, VERDICTS, Analysed, Claim
+from .types import APPROVAL_MEANINGS, REVIEW_VERDICTS, VERDICTS, Analysed, Claim
 
 __all__ = [
     "claim", "reopen_quarantined", "commit_analyses", "commit_quarantine", "release_claim", "insert_scores",
@@ -289,9 +290,7 @@ def insert_model(conn, *, profile, event, model_json: str, model_npz: bytes, met
         and_(reference_models.c.profile == profile, reference_models.c.event == event))).scalar() or 0) + 1
     now = utc_now()
     if activate:
-        conn.execute(reference_models.update().where(and_(
-            reference_models.c.profile == profile, reference_models.c.event == event,
-            reference_models.c.status == "active")).values(status="retired"))
+        _retire_active(conn, profile, event)
     row = dict(
         profile=profile, event=event, version=version, reference_lots=json.dumps(list(meta.get("reference_lots", []))),
         parameters=json.dumps(model.get_params()), n_recordings=int(meta.get("n_recordings", 0)),
@@ -309,21 +308,28 @@ def insert_model(conn, *, profile, event, model_json: str, model_npz: bytes, met
     return model_id, version
 
 
+def _retire_active(conn, profile, event) -> None:
+    m = reference_models
+    conn.execute(m.update().where(and_(m.c.profile == profile, m.c.event == event, m.c.status == "active"))
+                 .values(status="retired"))
+
+
+def _make_active(conn, model_id: int, profile, event) -> None:
+    """Make a stored version the one active version of its profile and event (the old one retired)."""
+    _retire_active(conn, profile, event)
+    conn.execute(reference_models.update().where(reference_models.c.id == model_id).values(status="active"))
+
+
 def activate_model(conn, model_id, *, person, where):
     row = conn.execute(select(reference_models.c.profile, reference_models.c.event, reference_models.c.version)
                        .where(reference_models.c.id == model_id)).first()
     if row is None:
         raise StoreError(f"{where}: no reference model with id {model_id}")
-    conn.execute(reference_models.update().where(and_(
-        reference_models.c.profile == row.profile, reference_models.c.event == row.event,
-        reference_models.c.status == "active")).values(status="retired"))
-    conn.execute(reference_models.update().where(reference_models.c.id == model_id).values(status="active"))
+    _make_active(conn, model_id, row.profile, row.event)
     audit(conn, person=person, action="reference.activate", target=f"model {model_id}",
           detail={"profile": row.profile, "event": row.event, "version": row.version})
 
 
-#: The meanings a signed approval can carry.
-APPROVAL_MEANINGS = ("approved for routine monitoring", "approved for investigation only")
 #: store_info key of the site's rule that the approver must not be the person who built the version.
 POLICY_OTHER_APPROVER = "policy.approver_not_builder"
 
@@ -356,9 +362,7 @@ def approve_model(conn, model_id, *, user, meaning, reason, where) -> int:
                          f"{user.user_name} built model {model_id}")
     aid = conn.execute(approvals.insert().values(model_id=int(model_id), person=user.user_name, at=utc_now(),
                                                  meaning=meaning, reason=reason).returning(approvals.c.id)).scalar_one()
-    conn.execute(m.update().where(and_(m.c.profile == row.profile, m.c.event == row.event,
-                                       m.c.status == "active")).values(status="retired"))
-    conn.execute(m.update().where(m.c.id == int(model_id)).values(status="active"))
+    _make_active(conn, int(model_id), row.profile, row.event)
     audit(conn, person=user.user_name, action="reference.approve", target=f"model {model_id}",
           detail={"profile": row.profile, "event": row.event, "version": row.version, "meaning": meaning,
                   "reason": reason, "built_by": row.created_by, "approval_id": aid})
@@ -367,9 +371,7 @@ def approve_model(conn, model_id, *, user, meaning, reason, where) -> int:
 
 
 def set_policy(conn, key: str, value: str, *, person) -> None:
-    old = conn.execute(select(store_info.c.value).where(store_info.c.key == key)).scalar()
-    if conn.execute(store_info.update().where(store_info.c.key == key).values(value=value)).rowcount == 0:
-        conn.execute(store_info.insert().values(key=key, value=value))
+    old = put_info(conn, key, value)
     audit(conn, person=person, action="policy.set", target=key, detail={"from": old, "to": value})
 
 

@@ -9,6 +9,7 @@ import pandas as pd
 from dash import Input, Output, State, dcc, html
 
 from analysis.profiles import is_profile_name
+from analysis.store import APPROVAL_MEANINGS as MEANINGS
 from analysis.store import StoreError, queries
 
 from .. import auth
@@ -107,9 +108,6 @@ def layout(ctx, q: dict):
         approval_card(ctx.store),
         dcc.Store(id="references-load-id", data=uuid.uuid4().hex),
     ])
-
-
-MEANINGS = ("approved for routine monitoring", "approved for investigation only")
 
 
 def approval_card(store):

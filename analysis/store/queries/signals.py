@@ -11,7 +11,7 @@ from ..errors import StoreError
 from ._base import df
 
 __all__ = ["signals", "SIGNAL_COLUMNS", "REVIEW_COLUMNS", "actuation_causes", "units_table", "rig_fingerprint",
-           "reviews", "actuation_verdicts"]
+           "actuation_verdicts"]
 
 #: What `harken export signals` writes, in this order.
 SIGNAL_COLUMNS = ["level", "event", "statistic", "value", "limit", "rule", "site", "rig", "lot", "unit",
@@ -81,18 +81,6 @@ def _latest_reviews(conn, signal_ids) -> pd.DataFrame:
         lambda x: REVIEW_VERDICTS.get(x, x)), "verdict_by": last["person"],
         "verdict_at": last["created_at"].astype(str).str[:19], "verdict_comment": last["note"].fillna("")})
     return out.join(n).reset_index()
-
-
-def reviews(conn, signal_id: int) -> pd.DataFrame:
-    """Every verdict on one signal, oldest first: verdict, verdict_words, person, at (UTC), comment."""
-    from ..types import REVIEW_VERDICTS
-
-    v = db.verdicts
-    got = df(conn, select(v.c.verdict, v.c.person, v.c.created_at.label("at"), v.c.note.label("comment"))
-             .where(v.c.signal_id == int(signal_id)).order_by(v.c.id))
-    got["verdict_words"] = got["verdict"].map(lambda x: REVIEW_VERDICTS.get(x, x))
-    got["comment"] = got["comment"].fillna("")
-    return got
 
 
 def actuation_verdicts(conn) -> pd.Series:
