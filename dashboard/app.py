@@ -158,11 +158,9 @@ def _actuation_exists(ctx: AppContext, actuation_id: int) -> bool:
 
 def _shell(ctx: AppContext):
     # a view with a ROLE is in the menu of those whose role includes it (its data is gated on the server)
-    user = auth.signed_in()
     links = [dcc.Link(v.TITLE, href=v.PATH, id=f"app-nav-{name}", className="app-nav-link")
-             for name, v in VIEWS.items() if v.IN_MENU and (
-                 getattr(v, "ROLE", None) is None
-                 or (user is not None and auth.store_users.role_at_least(user.role, v.ROLE)))]
+             for name, v in VIEWS.items()
+             if v.IN_MENU and (getattr(v, "ROLE", None) is None or auth.acting(v.ROLE) is not None)]
     return html.Div(id="app-root", children=[
         dcc.Location(id="app-url", refresh=False),
         dcc.Store(id="app-meeting", data=ctx.meeting),

@@ -28,8 +28,8 @@ from flask_login import LoginManager, UserMixin, current_user, login_user, logou
 
 from analysis.store import users as store_users
 
-__all__ = ["AuthSettings", "install", "require", "signed_in", "signed_in_name", "WRITE_ROLES", "LOCK_ATTEMPTS",
-           "LOCK_WINDOW_S"]
+__all__ = ["AuthSettings", "install", "require", "signed_in", "signed_in_name", "acting", "WRITE_ROLES",
+           "LOCK_ATTEMPTS", "LOCK_WINDOW_S"]
 
 LOCK_ATTEMPTS = 5
 LOCK_WINDOW_S = 15 * 60
@@ -76,6 +76,17 @@ def signed_in():
         return current_user.user if current_user.is_authenticated else None
     except (AttributeError, RuntimeError):  # no request, or no login manager on this app
         return None
+
+
+def acting(role: str, person=None):
+    """The signed-in store user when their role includes ``role`` (and, given ``person``, their name is it),
+    else None: the one check a view or a write callback makes of who is acting."""
+    user = signed_in()
+    if user is None or not store_users.role_at_least(user.role, role):
+        return None
+    if person is not None and person != user.user_name:
+        return None
+    return user
 
 
 def signed_in_name() -> str | None:
@@ -155,6 +166,9 @@ def install(app, ctx, settings: AuthSettings) -> None:
         return SignedIn(u) if u is not None and u.active else None
 
     idle_s = float(settings.idle_minutes) * 60.0
+    # last_seen moves in steps of at most 30 s (a quarter of a short timeout), so that not every request
+    # re-signs and re-sends the session cookie; the timeout is then exact to within that step
+    step_s = min(30.0, idle_s / 4.0)
 
     @server.before_request
     def _gate():
@@ -180,7 +194,7 @@ def install(app, ctx, settings: AuthSettings) -> None:
                 logout_user()
                 flask.session.clear()
                 _audit(ctx, person=name, action="auth.idle_timeout", detail={"idle_minutes": settings.idle_minutes})
-            else:
+            elif last is None or now - float(last) >= step_s:
                 flask.session["last_seen"] = now
         if path in PUBLIC_PATHS or path.startswith(PUBLIC_PREFIXES):
             return None

@@ -39,8 +39,7 @@ def awaiting(signals) -> int:
 
 
 def may_review() -> bool:
-    user = auth.signed_in()
-    return user is not None and auth.store_users.role_at_least(user.role, "technician")
+    return auth.acting("technician") is not None
 
 
 def review_form(prefix: str, signals) -> html.Div:
@@ -94,9 +93,8 @@ def register_review(app, ctx, prefix: str) -> None:
                   State(f"{prefix}-review-comment", "value"), State("app-user", "data"), prevent_initial_call=True)
     @guarded("text")
     def record(_n, signal_id, verdict, comment, person):
-        user = auth.signed_in()  # the gate checked it already; a callback called some other way checks again
-        if user is None or person != user.user_name or not auth.store_users.role_at_least(user.role,
-                                                                                             "technician"):
+        user = auth.acting("technician", person)  # the gate checked it already; called some other way, again
+        if user is None:
             return "Refused: recording a verdict needs a signed-in technician."
         if not isinstance(signal_id, int) or isinstance(signal_id, bool):
             return "Choose the signal you reviewed."

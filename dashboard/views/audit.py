@@ -21,28 +21,18 @@ MAX_ROWS = 500
 
 
 def allowed() -> bool:
-    user = auth.signed_in()
-    return user is not None and auth.store_users.role_at_least(user.role, ROLE)
+    return auth.acting(ROLE) is not None
 
 
-def audit_rows(store, *, person=None, action=None, since=None, until=None) -> pd.DataFrame:
-    """The trail, newest first, filtered: person (exact), action (prefix, e.g. 'auth.'), since/until (dates)."""
+def audit_rows(store, *, person=None, action=None, since=None, until=None, limit: int = MAX_ROWS) -> pd.DataFrame:
+    """The newest ``limit`` rows of the trail matching the filters (person exact, action a prefix such as
+    'auth.', since/until dates), filtered and cut in the database."""
     with store.read() as conn:
-        log = queries.audit_log(conn)
-    if not len(log):
-        return log
-    log["at"] = pd.to_datetime(log["at"])
-    if person:
-        log = log[log["person"] == person]
-    if action:
-        log = log[log["action"].str.startswith(action)]
-    if since:
-        log = log[log["at"] >= pd.Timestamp(since)]
-    if until:
-        log = log[log["at"] < pd.Timestamp(until) + pd.Timedelta(days=1)]
-    log = log.sort_values("id", ascending=False)
-    log["when"] = log["at"].dt.strftime("%Y-%m-%d %H:%M:%S")
-    log["hash"] = log["row_sha256"].fillna("").str[:12]
+        log = queries.audit_log(conn, person=person, action_prefix=action, since=since, until=until,
+                                newest_first=True, limit=limit)
+    if len(log):
+        log["when"] = pd.to_datetime(log["at"]).dt.strftime("%Y-%m-%d %H:%M:%S")
+        log["hash"] = log["row_sha256"].fillna("").str[:12]
     return log
 
 
@@ -52,9 +42,7 @@ def layout(ctx, q: dict):
                          card(html.P("The audit trail is shown to method owners and admins: sign in as one.",
                                      className="notice", id="audit-who"))])
     with ctx.store.read() as conn:
-        log = queries.audit_log(conn)
-    people = sorted(set(log["person"])) if len(log) else []
-    kinds = sorted({a.split(".")[0] + "." for a in log["action"]}) if len(log) else []
+        people, kinds = queries.audit_facets(conn)
     return html.Div([
         view_header("Audit", "Every audited act, newest first. Each row carries the SHA-256 of its content and of the "
                              "row before it; `harken audit verify` checks the chain."),
@@ -82,10 +70,10 @@ def register(app, ctx):
         rows = audit_rows(ctx.store, person=person if isinstance(person, str) else None,
                           action=action if isinstance(action, str) else None,
                           since=since if isinstance(since, str) else None,
-                          until=until if isinstance(until, str) else None)
+                          until=until if isinstance(until, str) else None, limit=MAX_ROWS + 1)
         if not len(rows):
             return html.P("No audit rows match.", id="audit-rows")
-        more = [html.P(f"Showing the newest {MAX_ROWS} of {len(rows)}.", className="muted")] \
+        more = [html.P(f"Showing the newest {MAX_ROWS}; narrow the filters for older rows.", className="muted")] \
             if len(rows) > MAX_ROWS else []
         return html.Div(more + [table(rows.head(MAX_ROWS), [
             ("id", "Row"), ("when", "When (UTC)", str), ("person", "Who", str), ("action", "What", str),

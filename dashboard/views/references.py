@@ -146,8 +146,7 @@ def approval_card(store):
 
 def can_build() -> bool:
     """Whether the signed-in person may build a reference (the method owner's role)."""
-    user = auth.signed_in()
-    return user is not None and auth.store_users.role_at_least(user.role, "method_owner")
+    return auth.acting("method_owner") is not None
 
 
 def _who_builds():
@@ -156,7 +155,7 @@ def _who_builds():
     if user is None:
         return html.P("Sign in as a method owner to build a reference: a build is recorded under the signed-in "
                       "person.", className="notice", id="references-who")
-    if not auth.store_users.role_at_least(user.role, "method_owner"):
+    if not can_build():
         return html.P(f"You are signed in as {user.user_name} ({user.role}): building a reference needs the "
                       "method owner's role.", className="notice", id="references-who")
     return html.P(f"Builds are recorded under {user.user_name} ({user.full_name}).", className="muted",
@@ -216,9 +215,8 @@ def register(app, ctx):
                   prevent_initial_call=True)
     @guarded("text", "children", "keep")
     def approve(_n, model_id, meaning, reason, password, person):
-        user = auth.signed_in()
-        if user is None or person != user.user_name or not auth.store_users.role_at_least(user.role,
-                                                                                             "method_owner"):
+        user = auth.acting("method_owner", person)
+        if user is None:
             return "Refused: approving needs a signed-in method owner.", models_view(ctx.store), ""
         if not isinstance(model_id, int) or isinstance(model_id, bool):
             return "Choose the version to approve.", models_view(ctx.store), ""

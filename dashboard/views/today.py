@@ -13,7 +13,7 @@ from analysis.store import queries
 from analysis.triage import NEXT_STEP, actuation_state, subject_words, suggest_cause
 
 from ..labels import short
-from ..review import awaiting, register_review, review_card
+from ..review import register_review, review_card
 from ..safety import guarded
 from ..urlstate import register_url_state
 from ..words import describe_flag
@@ -42,7 +42,7 @@ def today_data(store, *, per_rig: int = 10) -> dict:
         flagged = rows[rows["actuation_id"].isin(set(fl["actuation_id"]))]
         evidence = queries.triage_evidence(conn, sorted(set(flagged["lot"])), sorted(set(flagged["rig"])))
         wide = queries.signals(conn, levels=("lot", "rig", "cell", "unit"))
-        reviewable = queries.signals(conn, reviews=True)
+        waiting = queries.awaiting_review(conn)  # a count, not the signals: Today refreshes by itself
         stored = queries.signals(conn, levels=("actuation",))
         stored = stored[stored["actuation_id"].isin(set(flagged["actuation_id"]))]
     rows = rows.copy()
@@ -65,7 +65,7 @@ def today_data(store, *, per_rig: int = 10) -> dict:
     counts = rows["state"].value_counts().to_dict()
     counts["quarantined"] = len(quar)
     counts["signals"] = len(wide)
-    counts["awaiting review"] = awaiting(reviewable)
+    counts["awaiting review"] = waiting
     return {"rows": rows, "flags": fl, "quarantine": quar, "counts": counts, "signals": wide}
 
 

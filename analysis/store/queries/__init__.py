@@ -29,6 +29,7 @@ from .models import active_models, approvals, load_model, models, reference_lots
 from .records import (
     actuation_detail,
     actuations,
+    audit_facets,
     audit_log,
     band_levels,
     check_integrity,
@@ -47,14 +48,14 @@ from .records import (
     trajectory,
     unscored,
 )
-from .signals import SIGNAL_COLUMNS, actuation_causes, rig_fingerprint, signals, units_table
+from .signals import SIGNAL_COLUMNS, actuation_causes, awaiting_review, rig_fingerprint, signals, units_table
 
 __all__ = [
     "schema_version", "recordings", "quarantine", "recent_quarantine", "actuations", "export_actuations", "flags",
     "actuation_detail", "band_levels", "event_levels", "trajectory", "trajectories", "unscored", "latest_per_rig",
-    "lot_actuations", "lot_names", "audit_log", "check_integrity", "kept_files",
+    "lot_actuations", "lot_names", "audit_log", "audit_facets", "check_integrity", "kept_files",
     "models", "load_model", "active_models", "reference_lots", "typical_reference_actuation", "approvals",
     "choices", "lot_points", "actuation_cloud", "rig_summary", "reference_summary", "rig_histogram",
     "triage_evidence", "flag_summary", "fingerprint", "signals", "actuation_causes", "units_table", "SIGNAL_COLUMNS",
-    "rig_fingerprint",
+    "rig_fingerprint", "awaiting_review",
 ]

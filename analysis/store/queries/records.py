@@ -397,9 +397,32 @@ def lot_names(conn, profile: str | None = None) -> list[str]:
     return sorted(conn.execute(stmt).scalars())
 
 
-def audit_log(conn) -> pd.DataFrame:
-    """The audit log, oldest first."""
-    return df(conn, select(db.audit_log).order_by(db.audit_log.c.id))
+def audit_log(conn, *, person: str | None = None, action_prefix: str | None = None, since=None, until=None,
+              newest_first: bool = False, limit: int | None = None) -> pd.DataFrame:
+    """The audit log, oldest first (or newest first), filtered in the database: person (exact), action_prefix
+    (e.g. "auth."), since/until (dates or times, UTC; until a date includes that day), at most ``limit`` rows."""
+    a = db.audit_log
+    stmt = select(a)
+    if person:
+        stmt = stmt.where(a.c.person == person)
+    if action_prefix:
+        stmt = stmt.where(a.c.action.startswith(action_prefix, autoescape=True))
+    if since:
+        stmt = stmt.where(a.c.at >= pd.Timestamp(since).to_pydatetime())
+    if until:
+        end = pd.Timestamp(until)
+        end = end + pd.Timedelta(days=1) if end == end.normalize() else end
+        stmt = stmt.where(a.c.at < end.to_pydatetime())
+    stmt = stmt.order_by(a.c.id.desc() if newest_first else a.c.id)
+    return df(conn, stmt.limit(limit) if limit is not None else stmt)
+
+
+def audit_facets(conn) -> tuple[list[str], list[str]]:
+    """(the people, the kinds of action such as "auth.") that the audit log holds, for its filters."""
+    a = db.audit_log
+    people = sorted(conn.execute(select(a.c.person).distinct()).scalars())
+    actions = conn.execute(select(a.c.action).distinct()).scalars()
+    return people, sorted({x.split(".")[0] + "." for x in actions})
 
 
 def kept_files(conn) -> dict:

@@ -11,7 +11,7 @@ from ..errors import StoreError
 from ._base import df
 
 __all__ = ["signals", "SIGNAL_COLUMNS", "REVIEW_COLUMNS", "actuation_causes", "units_table", "rig_fingerprint",
-           "actuation_verdicts"]
+           "actuation_verdicts", "awaiting_review"]
 
 #: What `harken export signals` writes, in this order.
 SIGNAL_COLUMNS = ["level", "event", "statistic", "value", "limit", "rule", "site", "rig", "lot", "unit",
@@ -81,6 +81,15 @@ def _latest_reviews(conn, signal_ids) -> pd.DataFrame:
         lambda x: REVIEW_VERDICTS.get(x, x)), "verdict_by": last["person"],
         "verdict_at": last["created_at"].astype(str).str[:19], "verdict_comment": last["note"].fillna("")})
     return out.join(n).reset_index()
+
+
+def awaiting_review(conn) -> int:
+    """How many active signals have no verdict yet (counted in the database)."""
+    from sqlalchemy import exists, func
+
+    s, v = db.signals, db.verdicts
+    return int(conn.execute(select(func.count()).select_from(s).where(and_(
+        s.c.active.is_(True), ~exists().where(v.c.signal_id == s.c.id)))).scalar() or 0)
 
 
 def actuation_verdicts(conn) -> pd.Series:

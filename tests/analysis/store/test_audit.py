@@ -124,3 +124,22 @@ def test_a_bad_head_argument_is_refused(store_url, tmp_path):
     with _trail(store_url, tmp_path, n=1):
         code, _, err = run_cli("audit", "verify", "--store", store_url, "--head", "12:abc")
     assert code == 1 and "--head: a head is ID:SHA256" in err
+
+
+def test_the_trail_is_filtered_in_the_database(sqlite_url, tmp_path):
+    from analysis.store import queries
+
+    with _trail(sqlite_url, tmp_path) as store:
+        store.audit(person="person0", action="auth.signin")
+        with store.read() as conn:
+            mine = queries.audit_log(conn, person="person0")
+            auth_rows = queries.audit_log(conn, action_prefix="auth.")
+            newest = queries.audit_log(conn, newest_first=True, limit=2)
+            day = str(mine["at"].iloc[0])[:10]
+            that_day = queries.audit_log(conn, since=day, until=day)  # a date as until: the whole day
+            people, kinds = queries.audit_facets(conn)
+    assert list(mine["id"]) == [1, 3, 5, 7] and set(mine["person"]) == {"person0"}
+    assert list(auth_rows["action"]) == ["auth.signin"]
+    assert list(newest["id"]) == [7, 6]
+    assert len(that_day) == 7
+    assert people == ["person0", "person1"] and kinds == ["auth.", "test."]
