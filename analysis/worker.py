@@ -225,13 +225,19 @@ class Heartbeat:
             except Exception as exc:  # noqa: BLE001 - a missed beat is not a reason to stop the worker
                 self.log(f"heartbeat: could not renew the claims of {self.worker_id} ({exc})")
 
-    def __enter__(self) -> Heartbeat:
+    def start(self) -> Heartbeat:
         self._thread.start()
         return self
 
-    def __exit__(self, *exc) -> None:
+    def stop(self) -> None:
         self._stop.set()
         self._thread.join(timeout=max(5.0, self.interval_s))
+
+    def __enter__(self) -> Heartbeat:
+        return self.start()
+
+    def __exit__(self, *exc) -> None:
+        self.stop()
 
 
 def stopped_here(holder: str) -> bool:
@@ -246,7 +252,7 @@ def stopped_here(holder: str) -> bool:
         os.kill(int(pid), 0)
     except ProcessLookupError:
         return True
-    except (PermissionError, OverflowError, OSError):
+    except (OverflowError, OSError):  # not ours to see (PermissionError), or no such pid at all
         return False
     return False
 
@@ -470,8 +476,7 @@ def process_files(
     window = max(2, 2 * jobs)
     seen: dict[str, str] = {}  # content hash -> the name it was first seen under in this pass
     # live claims are renewed three times per claim timeout
-    beat = Heartbeat(store, worker_id, interval_s=max(0.05, claim_timeout_s / 3.0), log=log)
-    beat.__enter__()
+    beat = Heartbeat(store, worker_id, interval_s=max(0.05, claim_timeout_s / 3.0), log=log).start()
     try:
         for chunk in _chunks(files, batch_size):
             hashed, refused = [], []
@@ -551,7 +556,7 @@ def process_files(
         flush()  # what is analysed is kept; claims of the rest are taken up again after the claim timeout
         raise
     finally:
-        beat.__exit__(None, None, None)
+        beat.stop()
         bar.close()
     summary.elapsed_s = time.perf_counter() - t0
     return summary

@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 import argparse
+import getpass
 import sys
 
-__all__ = ["add_store", "add_files", "add_profiles", "add_profile", "log"]
+from ..errors import AnalysisError
+
+__all__ = ["add_store", "add_files", "add_profiles", "add_profile", "log", "cli_person", "read_password"]
 
 
 def add_store(p: argparse.ArgumentParser) -> None:
@@ -35,3 +38,26 @@ def add_profile(p: argparse.ArgumentParser, *, required: bool = False) -> None:
 def log(msg: str) -> None:
     """A progress line on stderr (stdout keeps the command's result)."""
     print(msg, file=sys.stderr, flush=True)
+
+
+def cli_person() -> str:
+    """Who a command-line act is recorded under: the login name, marked as the command line."""
+    from ..scoring import current_user
+
+    return f"{current_user()} (command line)"
+
+
+def read_password(args, *, twice: bool = True) -> str:
+    """A password from the first line of standard input (--password-stdin), or asked on the terminal (twice to
+    set one)."""
+    if args.password_stdin:
+        line = sys.stdin.readline().rstrip("\r\n")
+        if not line:
+            raise AnalysisError("--password-stdin: standard input holds no password")
+        return line
+    if not sys.stdin.isatty():
+        raise AnalysisError("no terminal to ask for a password on: use --password-stdin")
+    first = getpass.getpass("password: ")
+    if twice and getpass.getpass("password again: ") != first:
+        raise AnalysisError("the two passwords differ; nothing was changed")
+    return first

@@ -8,7 +8,7 @@ single person's store) builds active versions, as before users existed."""
 from __future__ import annotations
 
 from ..errors import AnalysisError
-from ._common import add_profiles, add_store
+from ._common import add_profiles, add_store, cli_person
 
 __all__ = ["register", "build", "list_models", "approve", "policy", "activate", "rescore"]
 
@@ -92,9 +92,9 @@ def build(args) -> int:
 
 def approve(args) -> int:
     from ..store import Store
-    from .user import _password
+    from ._common import read_password
 
-    password = _password(args, twice=False)
+    password = read_password(args, twice=False)
     with Store.open(args.store) as store:
         store.approve_model(args.model, person=args.by, password=password, meaning=args.meaning,
                             reason=args.reason)
@@ -105,11 +105,10 @@ def approve(args) -> int:
 def policy(args) -> int:
     from ..store import Store
     from ..store.writes import POLICY_OTHER_APPROVER
-    from .user import _by
 
     with Store.open(args.store) as store:
         store.set_policy(POLICY_OTHER_APPROVER, "true" if args.approver_not_builder == "yes" else "false",
-                         person=_by())
+                         person=cli_person())
     print(f"approver must differ from the builder: {args.approver_not_builder}")
     return 0
 

@@ -2,11 +2,7 @@
 
 from __future__ import annotations
 
-import getpass
-import sys
-
-from ..errors import AnalysisError
-from ._common import add_store
+from ._common import add_store, cli_person, read_password
 
 __all__ = ["register"]
 
@@ -45,26 +41,6 @@ def _password_options(p) -> None:
                    help="read the password from the first line of standard input instead of asking twice")
 
 
-def _by() -> str:
-    from ..scoring import current_user
-
-    return f"{current_user()} (command line)"
-
-
-def _password(args, *, twice: bool = True) -> str:
-    if args.password_stdin:
-        line = sys.stdin.readline().rstrip("\r\n")
-        if not line:
-            raise AnalysisError("--password-stdin: standard input holds no password")
-        return line
-    if not sys.stdin.isatty():
-        raise AnalysisError("no terminal to ask for a password on: use --password-stdin")
-    first = getpass.getpass("password: ")
-    if twice and getpass.getpass("password again: ") != first:
-        raise AnalysisError("the two passwords differ; nothing was changed")
-    return first
-
-
 def _open(args):
     from ..store import Store
 
@@ -74,9 +50,9 @@ def _open(args):
 def _add(args) -> int:
     from ..store.users import add_user
 
-    password = None if args.no_password else _password(args)
+    password = None if args.no_password else read_password(args)
     with _open(args) as store, store.write() as conn:
-        u = add_user(conn, args.name, role=args.role, full_name=args.full_name, password=password, by=_by())
+        u = add_user(conn, args.name, role=args.role, full_name=args.full_name, password=password, by=cli_person())
     print(f"{store.url}: user {u.user_name} ({u.full_name}) added as {u.role}")
     return 0
 
@@ -85,7 +61,7 @@ def _set_role(args) -> int:
     from ..store.users import set_role
 
     with _open(args) as store, store.write() as conn:
-        u = set_role(conn, args.name, args.role, by=_by())
+        u = set_role(conn, args.name, args.role, by=cli_person())
     print(f"{store.url}: user {u.user_name} is now {u.role}")
     return 0
 
@@ -93,9 +69,9 @@ def _set_role(args) -> int:
 def _set_password(args) -> int:
     from ..store.users import set_password
 
-    password = _password(args)
+    password = read_password(args)
     with _open(args) as store, store.write() as conn:
-        set_password(conn, args.name, password, by=_by())
+        set_password(conn, args.name, password, by=cli_person())
     print(f"{store.url}: password of {args.name} set")
     return 0
 
@@ -104,7 +80,7 @@ def _disable(args) -> int:
     from ..store.users import disable_user
 
     with _open(args) as store, store.write() as conn:
-        u = disable_user(conn, args.name, by=_by())
+        u = disable_user(conn, args.name, by=cli_person())
     print(f"{store.url}: user {u.user_name} disabled (kept, so what they did stays attributable)")
     return 0
 
