@@ -117,3 +117,14 @@ def store_copy(filled_store, tmp_path):
     dst = tmp_path / "copy"
     shutil.copytree(src, dst, ignore=shutil.ignore_patterns("*-dashboard-cache"))
     return f"sqlite:///{dst / 'harken.db'}"
+
+
+def add_people(store_url: str, people, *, password: str) -> str:
+    """Add users (name, role[, full name]) with one password to the store at store_url; returns the URL."""
+    from analysis.store import Store
+    from analysis.store.users import add_user
+
+    with Store.open(store_url, create=False) as store, store.write() as conn:
+        for name, role, *full in people:
+            add_user(conn, name, role=role, full_name=full[0] if full else "", password=password, by="test")
+    return store_url

@@ -309,24 +309,24 @@ def test_claims_of_a_stopped_worker_on_this_host_are_taken_over_at_once(sqlite_u
 
 
 def test_a_heartbeat_keeps_live_claims_and_a_stopped_one_lets_them_go(store_url, tmp_path):
-    # A claim timeout of 0.6 s and a heartbeat every 0.1 s (a real thread on the real store): while it beats,
-    # another worker finds the recording busy; once it stops, the claim ages out and is taken over.
+    # A claim timeout of 3 s and a heartbeat every 0.1 s (a real thread on the real store): while it beats for
+    # 4 s, longer than the timeout, another worker finds the recording busy; once it stops, the claim ages out.
     import time
 
     from analysis.worker import Heartbeat
 
     with Store.open(store_url, files_dir=tmp_path) as store:
-        first = store.claim("a" * 64, "x.flac", 10, worker="host-a:1", claim_timeout_s=0.6)
-        other = store.claim("b" * 64, "y.flac", 10, worker="host-b:2", claim_timeout_s=0.6)
+        first = store.claim("a" * 64, "x.flac", 10, worker="host-a:1", claim_timeout_s=3.0)
+        other = store.claim("b" * 64, "y.flac", 10, worker="host-b:2", claim_timeout_s=3.0)
         assert first.kind == other.kind == "new"
         with Heartbeat(store, "host-a:1", interval_s=0.1) as beat:
-            time.sleep(1.0)
-            assert store.claim("a" * 64, "x.flac", 10, worker="host-c:3", claim_timeout_s=0.6).kind == "busy"
+            time.sleep(4.0)
+            assert store.claim("a" * 64, "x.flac", 10, worker="host-c:3", claim_timeout_s=3.0).kind == "busy"
         assert beat.beats >= 5
         # the other worker's claim was not renewed by host-a's heartbeat: it has aged out
-        assert store.claim("b" * 64, "y.flac", 10, worker="host-c:3", claim_timeout_s=0.6).kind == "retry"
-        time.sleep(0.8)
-        assert store.claim("a" * 64, "x.flac", 10, worker="host-c:3", claim_timeout_s=0.6).kind == "retry"
+        assert store.claim("b" * 64, "y.flac", 10, worker="host-c:3", claim_timeout_s=3.0).kind == "retry"
+        time.sleep(3.5)
+        assert store.claim("a" * 64, "x.flac", 10, worker="host-c:3", claim_timeout_s=3.0).kind == "retry"
 
 
 def test_the_worker_scores_with_a_reference_built_while_it_runs(store_copy):

@@ -8,7 +8,7 @@ import time
 import pytest
 
 from analysis.store import Store
-from analysis.store.users import add_user
+from tests.conftest import add_people
 
 PASSWORD = "a long enough password"
 
@@ -16,10 +16,8 @@ PASSWORD = "a long enough password"
 @pytest.fixture
 def people(store_copy):
     """The filled store's copy with a viewer, a technician and a method owner."""
-    with Store.open(store_copy, create=False) as store, store.write() as conn:
-        for name, role in (("vera", "viewer"), ("tom", "technician"), ("olga", "method_owner")):
-            add_user(conn, name, role=role, password=PASSWORD, by="test")
-    return store_copy
+    return add_people(store_copy, [("vera", "viewer"), ("tom", "technician"), ("olga", "method_owner")],
+                      password=PASSWORD)
 
 
 def _app(url, tmp_path, **kw):
@@ -93,10 +91,10 @@ def test_five_failures_in_fifteen_minutes_lock_the_user_name(people, tmp_path):
 
 
 def test_an_idle_session_ends(people, tmp_path):
-    client = _app(people, tmp_path, idle_minutes=0.5 / 60).server.test_client()
+    client = _app(people, tmp_path, idle_minutes=2.0 / 60).server.test_client()
     _sign_in(client, "tom")
     assert client.get("/").status_code == 200
-    time.sleep(0.7)
+    time.sleep(2.5)
     assert client.get("/").status_code == 302
     assert (_audit(people)["action"] == "auth.idle_timeout").sum() == 1
 

@@ -98,12 +98,9 @@ PEOPLE = (("vic", "viewer", "Vic Viewer"), ("tom", "technician", "Tom Tech"), ("
 def writable_server(store_copy, tmp_path):  # noqa: F811
     """The dashboard on a private copy of the filled store (a test here may build references), with a viewer
     (vic), a technician (tom) and a method owner (ada), all with PASSWORD."""
-    from analysis.store import Store
-    from analysis.store.users import add_user
+    from tests.conftest import add_people
 
-    with Store.open(store_copy, create=False) as store, store.write() as conn:
-        for name, role, full in PEOPLE:
-            add_user(conn, name, role=role, full_name=full, password=PASSWORD, by="e2e")
+    add_people(store_copy, PEOPLE, password=PASSWORD)
     with _serving(store_copy, tmp_path / "cache") as base:
         yield base
 

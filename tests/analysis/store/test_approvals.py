@@ -10,8 +10,8 @@ import pytest
 from analysis.references import build_reference
 from analysis.store import Store, StoreError
 from analysis.store import audit as chain
-from analysis.store.users import add_user
 from tests.analysis.conftest import run_cli
+from tests.conftest import add_people
 
 PASSWORD = "approver's long password"
 MEANING = "approved for routine monitoring"
@@ -19,10 +19,8 @@ MEANING = "approved for routine monitoring"
 
 @pytest.fixture
 def people(store_copy):
-    with Store.open(store_copy, create=False) as store, store.write() as conn:
-        for name, role in (("vera", "viewer"), ("olga", "method_owner"), ("otto", "method_owner")):
-            add_user(conn, name, role=role, password=PASSWORD, by="test")
-    return store_copy
+    return add_people(store_copy, [("vera", "viewer"), ("olga", "method_owner"), ("otto", "method_owner")],
+                      password=PASSWORD)
 
 
 def _pending(store, by="olga"):
