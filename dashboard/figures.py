@@ -85,8 +85,8 @@ def _jitter(ids, width=0.5):
 def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting: bool = False,
                      rule_words: dict | None = None, stored: pd.DataFrame | None = None) -> go.Figure:
     """Lot-by-lot chart: one line per rig of per-lot points, the centre line and limits, signals ringed; behind
-    them a thinned cloud of single actuations (flagged ones in the flag colour). A lot point's customdata is
-    ["lot", lot, rig]; an actuation's is ["actuation", id]. stored: the store's signals for these points (rows:
+    them a sampled cloud of single actuations (flagged ones in the flag colour). A lot point's customdata is
+    ["lot", lot, rig]; an actuation's is its id (a number). stored: the store's signals for these points (rows:
     lot, rig — "all rigs" for lot-level ones —, cause, evidence); when given, they are what is ringed, with
     their cause, instead of the chart's own limit and run-rule checks."""
     c = _c(meeting)
@@ -101,21 +101,26 @@ def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting:
     if cloud is not None and len(cloud):
         cl = cloud[cloud["lot"].isin(pos)]
         x = cl["lot"].map(pos).to_numpy(dtype=float) + _jitter(cl["actuation_id"], 0.7)
-        for flagged, name, colour, size in ((False, "single actuations (thinned)", c["muted"], c["marker"] - 3),
+        ids = cl["actuation_id"].to_numpy(dtype=float)
+        y = cl["value"].to_numpy(dtype=float)
+        rig_of = cl["rig"].to_numpy(dtype=object)
+        flag_of = cl["flagged"].to_numpy(dtype=bool)
+        for flagged, name, colour, size in ((False, "single actuations (sampled)", c["muted"], c["marker"] - 3),
                                             (True, "flagged actuations", c["flag"], c["marker"] - 1)):
-            m = (cl["flagged"] == flagged).to_numpy()
-            if not m.any():
-                continue
-            sub = cl[m]
-            fig.add_trace(go.Scattergl(
-                x=x[m], y=sub["value"].to_numpy(dtype=float), mode="markers", name=name,
-                marker=dict(color=colour, size=size, opacity=0.9 if flagged else 0.45,
-                            symbol="x" if flagged else "circle"),
-                customdata=np.column_stack([np.full(len(sub), "actuation"), sub["actuation_id"].astype(str)]),
-                text=[f"actuation {a} · {full(r)} · lot {full(lt)}"
-                      for a, r, lt in zip(sub["actuation_id"], sub["rig"], sub["lot"])],
-                hovertemplate="%{text}<br>%{y:.3g}<extra></extra>",
-            ))
+            first = True
+            # Thousands of points: one trace per rig, so the hover names the rig once per trace instead of a
+            # string per point through the validators (which would cost more than every query of the view);
+            # the lot is the column the point stands in, and the id is numeric customdata.
+            for rig in dict.fromkeys(rig_of[flag_of == flagged]):
+                m = (flag_of == flagged) & (rig_of == rig)
+                fig.add_trace(go.Scattergl(
+                    x=x[m], y=y[m], mode="markers", name=name, legendgroup=name, showlegend=first,
+                    marker=dict(color=colour, size=size, opacity=0.9 if flagged else 0.45,
+                                symbol="x" if flagged else "circle"),
+                    customdata=ids[m],
+                    hovertemplate=f"actuation %{{customdata:d}} · {full(rig)}<br>%{{y:.3g}}<extra></extra>",
+                ))
+                first = False
     for k, rig in enumerate(rigs_):
         g = p[p["rig"] == rig].sort_values("first")
         g = g[np.isfinite(g["value"].astype(float))]  # a cell whose actuations all failed QC has no value to draw

@@ -30,10 +30,14 @@ def register(sub) -> None:
     b.add_argument("--store", default=None, metavar="URL", help="an empty store to ingest into (default: a "
                    "fresh SQLite file in a temporary folder)")
     b.set_defaults(func=_ingest)
-    b = bsub.add_parser("dashboard", help="view callback times on synthetic stores of 10,000 and 100,000 actuations")
+    b = bsub.add_parser("dashboard", help="view callback times on synthetic stores of 10,000 and 1,000,000 "
+                                          "actuations")
     b.add_argument("--repeat", type=int, default=3)
     b.add_argument("--small", type=int, default=10_000, help="actuations in the small store")
-    b.add_argument("--large", type=int, default=100_000, help="actuations in the large store")
+    b.add_argument("--large", type=int, default=1_000_000, help="actuations in the large store")
+    b.add_argument("--postgres", default=None, metavar="URL",
+                   help="fill and time on this PostgreSQL database instead of SQLite files; EVERYTHING IN ITS "
+                        "public SCHEMA IS DROPPED (give an empty database made for the bench)")
     b.set_defaults(func=_dashboard)
 
 
@@ -61,5 +65,5 @@ def _ingest(args) -> int:
 def _dashboard(args) -> int:
     from .bench_dashboard import run_bench
 
-    run_bench(sizes=(args.small, args.large), repeat=args.repeat)
+    run_bench(sizes=(args.small, args.large), repeat=args.repeat, postgres_url=args.postgres)
     return 0

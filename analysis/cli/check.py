@@ -1,10 +1,11 @@
-"""``harken check integrity``: is everything the store keeps whole and unchanged?"""
+"""``harken check integrity``: is everything the store keeps whole and unchanged? ``harken check summaries``: do
+the per-day summaries the views read agree with the raw rows?"""
 
 from __future__ import annotations
 
 from ._common import add_files, add_store
 
-__all__ = ["register", "integrity"]
+__all__ = ["register", "integrity", "summaries"]
 
 
 def register(sub) -> None:
@@ -19,6 +20,12 @@ def register(sub) -> None:
                    help="also hash every archived recording again and compare it with its content hash (reads "
                         "the whole archive)")
     i.set_defaults(func=integrity)
+    s = csub.add_parser("summaries", help="recompute the per-day summaries from the raw rows and compare them with "
+                                          "the stored ones (exit 1 when anything differs)")
+    add_store(s)
+    s.add_argument("--show", type=int, default=20, help="differences printed (default 20)")
+    s.add_argument("--repair", action="store_true", help="after reporting, write the recomputed summaries")
+    s.set_defaults(func=summaries)
 
 
 def integrity(args) -> int:
@@ -34,3 +41,23 @@ def integrity(args) -> int:
     what = said[0] if len(said) == 1 else ", ".join(said[:-1]) + " and " + said[-1]
     print(f"{store.url}: {n} recordings checked, {len(problems)} problem(s)" + ("" if problems else f": {what}"))
     return 1 if problems else 0
+
+
+def summaries(args) -> int:
+    from ..store import Store
+    from ..store import summaries as sm
+
+    with Store.open(args.store, create=False) as store:
+        with store.read() as conn:
+            problems = sm.differences(conn)
+        for line in problems[:args.show]:
+            print(line)
+        if len(problems) > args.show:
+            print(f"... and {len(problems) - args.show:,} more")
+        if problems and args.repair:
+            with store.write() as conn:
+                written = sm.rebuild(conn)
+            print("rewrote the summaries from the raw rows: " + ", ".join(f"{v:,} {k}" for k, v in written.items()))
+        print(f"{store.url}: summaries checked against the raw rows, {len(problems)} difference(s)"
+              + ("" if problems else ": they agree"))
+    return 1 if problems and not args.repair else 0

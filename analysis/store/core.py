@@ -16,7 +16,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.exc import ArgumentError, DBAPIError, NoSuchModuleError
 from sqlalchemy.pool import StaticPool
 
-from . import queries, writes
+from . import queries, summaries, writes
 from .errors import StoreError
 from .migrate import upgrade as upgrade_schema
 from .signals import refresh_signals
@@ -266,7 +266,9 @@ class Store:
         """Write scores of one event under one model: items [(actuation_id, ScoredEvent)], in one transaction
         (with the signals of ``refresh_profile`` brought up to date in it, when given)."""
         with self.write() as conn:
-            writes.insert_scores(conn, model_id, event, list(items))
+            items = list(items)
+            writes.insert_scores(conn, model_id, event, items)
+            summaries.refresh_for(conn, [actuation_id for actuation_id, _ in items])
             if refresh_profile is not None:
                 refresh_signals(conn, refresh_profile)
 

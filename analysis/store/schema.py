@@ -16,6 +16,7 @@ from datetime import UTC, datetime
 from sqlalchemy import (  # noqa: I001
     Boolean,
     Column,
+    Date,
     DateTime,
     Float,
     ForeignKey,
@@ -331,6 +332,62 @@ audit_log = Table(
     Column("prev_sha256", String(64)),  # the hash chain (analysis.store.audit)
     Column("row_sha256", String(64)),
     Index("ix_audit_at", "at"),
+)
+
+#: Per-day summaries kept by the worker in the transaction of the actuations behind them (analysis.store.summaries),
+#: read by the Lots, Rigs & sites and Today views instead of the raw rows. A cell is (profile, lot, rig, unit, UTC
+#: day). stat_summaries: per cell, event, model (0 for a statistic of the event itself, which needs no model) and
+#: statistic, the count, sum and sum of squares of its values (of their natural log for ratio statistics) and their
+#: range, over the actuations that passed their quality checks.
+stat_summaries = Table(
+    "stat_summaries", metadata,
+    Column("event", Text, primary_key=True),
+    Column("statistic", String(32), primary_key=True),
+    Column("model_id", Integer, primary_key=True),
+    Column("profile", Text, primary_key=True),
+    Column("lot_id", Integer, primary_key=True),
+    Column("rig_id", Integer, primary_key=True),
+    Column("unit_id", Integer, primary_key=True),
+    Column("day", Date, primary_key=True),
+    Column("n", Integer, nullable=False),
+    Column("s1", Float, nullable=False),
+    Column("s2", Float, nullable=False),
+    Column("lo", Float),
+    Column("hi", Float),
+)
+
+#: Per cell: every actuation, those that failed a quality check, those flagged by a flag that counts (a
+#: quality-check flag or one of an active model) and by an active model's flag alone, and the first and last
+#: recording time (UTC).
+cell_counts = Table(
+    "cell_counts", metadata,
+    Column("profile", Text, primary_key=True),
+    Column("lot_id", Integer, primary_key=True),
+    Column("rig_id", Integer, primary_key=True),
+    Column("unit_id", Integer, primary_key=True),
+    Column("day", Date, primary_key=True),
+    Column("site_id", Integer, nullable=False),
+    Column("n_all", Integer, nullable=False),
+    Column("n_qc_failed", Integer, nullable=False),
+    Column("n_flagged", Integer, nullable=False),
+    Column("n_model_flagged", Integer, nullable=False),
+    Column("first", DateTime, nullable=False),
+    Column("last", DateTime, nullable=False),
+    Index("ix_cell_counts_lot", "lot_id", "rig_id"),
+)
+
+#: The single-actuation cloud's sample: per (profile, lot, rig) the actuations of the lowest sampling keys (a fixed
+#: hash of the id), ranked 1, 2, ... so a view takes the first r of every stratum; flagged actuations are read
+#: from the flags, not from here.
+cloud_sample = Table(
+    "cloud_sample", metadata,
+    Column("actuation_id", Integer, ForeignKey("actuations.id"), primary_key=True),
+    Column("profile", Text, nullable=False),
+    Column("lot_id", Integer, nullable=False),
+    Column("rig_id", Integer, nullable=False),
+    Column("rank", Integer, nullable=False),
+    Index("ix_cloud_sample_rank", "profile", "rank"),
+    Index("ix_cloud_sample_stratum", "lot_id", "rig_id"),
 )
 
 TABLES = {t.name: t for t in metadata.sorted_tables}

@@ -2,22 +2,21 @@
 
 ``refresh_signals(conn, profile)`` runs inside the caller's write transaction: the worker's commit of a batch,
 each chunk of a re-scoring. It reads per-unit sums of the natural log of each per-actuation statistic under the
-active models (actuations that passed their quality checks only) and, for a model with a resonance block, the
-per-unit sums of its whitened components (a unit's T² of their mean), the unit limits stored with each model, and
-the flagged actuations; asks analysis.triage.decide for every signal; and writes them: a signal raised again
-keeps its row (first_seen stays, last_seen and the values move), a new one is inserted, an active one no longer
-raised is set inactive. On PostgreSQL a transaction-scoped advisory lock makes concurrent refreshes of one
-profile take turns, so the last one sees every committed batch.
+active models (actuations that passed their quality checks only; summed from the per-day summaries) and, for a
+model with a resonance block, the per-unit sums of its whitened components (a unit's T² of their mean), the unit
+limits stored with each model, and the flagged actuations; asks analysis.triage.decide for every signal; and
+writes them: a signal raised again keeps its row (first_seen stays, last_seen and the values move), a new one is
+inserted, an active one no longer raised is set inactive. On PostgreSQL a transaction-scoped advisory lock makes
+concurrent refreshes of one profile take turns, so the last one sees every committed batch.
 """
 
 from __future__ import annotations
 
 import json
-import zlib
 
 import numpy as np
 import pandas as pd
-from sqlalchemy import and_, bindparam, case, func, or_, select, text
+from sqlalchemy import and_, bindparam, func, or_, select
 
 from analysis.errors import ParameterError
 from analysis.monitor.levels import BLOCK_STATISTIC, GROUP_STATISTICS, limits_from_dict
@@ -27,6 +26,7 @@ from . import schema as db
 from .codec import from_f32, num
 from .codec import text as stored_text
 from .queries._base import active_model_ids, df, placed_full
+from .summaries import profile_lock
 
 __all__ = ["refresh_signals", "unit_summaries", "block_summaries", "model_levels", "backgrounds",
            "signature_reader"]
@@ -56,31 +56,36 @@ def model_levels(conn, profile: str) -> tuple[dict, dict, dict]:
 
 def unit_summaries(conn, profile: str, model_ids: dict) -> pd.DataFrame:
     """Per (event, statistic, lot, rig, unit): site, n (actuations that passed QC with a positive value), mean (of
-    the natural log), first and last recording time (UTC)."""
-    a, t = db.actuations, db.trajectories
+    the natural log), first and last recording time (UTC). Sums of the per-day summaries (analysis.store.summaries),
+    which the same transaction has brought up to date."""
+    ss, cc = db.stat_summaries, db.cell_counts
+    keys = [db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"), db.sites.c.name.label("site"),
+            db.units.c.name.label("unit")]
+
+    def joined(table):
+        return (table.join(db.lots, db.lots.c.id == table.c.lot_id).join(db.rigs, db.rigs.c.id == table.c.rig_id)
+                .join(db.sites, db.sites.c.id == db.rigs.c.site_id).join(db.units, db.units.c.id == table.c.unit_id))
+
+    cols = ["event", "statistic", "lot", "rig", "site", "unit", "n", "mean", "first", "last"]
+    if not model_ids:
+        return pd.DataFrame(columns=cols)
+    span = df(conn, select(*keys, func.min(cc.c.first).label("first"), func.max(cc.c.last).label("last"))
+              .select_from(joined(cc)).where(cc.c.profile == profile).group_by(*keys))
     frames = []
     for event, (model_id, _version) in model_ids.items():
-        cols = []
-        for stat in GROUP_STATISTICS:
-            c = t.c[stat]
-            v = case((and_(a.c.passed_qc.is_(True), c > 0), func.ln(c)), else_=None)
-            cols += [func.count(v).label(f"{stat}__n"), func.sum(v).label(f"{stat}__s1")]
-        stmt = (select(db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"), db.sites.c.name.label("site"),
-                       db.units.c.name.label("unit"), func.min(a.c.recorded_at).label("first"),
-                       func.max(a.c.recorded_at).label("last"), *cols)
-                .select_from(placed_full().join(t, and_(t.c.actuation_id == a.c.id, t.c.model_id == model_id)))
-                .where(a.c.profile == profile)
-                .group_by(db.lots.c.name, db.rigs.c.name, db.sites.c.name, db.units.c.name))
-        g = df(conn, stmt)
-        for stat in GROUP_STATISTICS:
-            n = g[f"{stat}__n"].fillna(0).astype(int)
-            s1 = g[f"{stat}__s1"].astype(float)
-            frames.append(pd.DataFrame({
-                "event": event, "statistic": stat, "lot": g["lot"], "rig": g["rig"], "site": g["site"],
-                "unit": g["unit"], "n": n, "mean": np.where(n > 0, s1 / n.where(n > 0), np.nan),
-                "first": pd.to_datetime(g["first"]), "last": pd.to_datetime(g["last"])}))
-    cols = ["event", "statistic", "lot", "rig", "site", "unit", "n", "mean", "first", "last"]
-    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=cols)
+        stmt = (select(ss.c.statistic, *keys, func.sum(ss.c.n).label("n"), func.sum(ss.c.s1).label("s1"))
+                .select_from(joined(ss))
+                .where(and_(ss.c.profile == profile, ss.c.event == event, ss.c.model_id == model_id,
+                            ss.c.statistic.in_(list(GROUP_STATISTICS))))
+                .group_by(ss.c.statistic, *keys))
+        g = df(conn, stmt).merge(span, on=["lot", "rig", "site", "unit"], how="left")
+        n = g["n"].fillna(0).astype(int)
+        s1 = g["s1"].astype(float)
+        frames.append(pd.DataFrame({
+            "event": event, "statistic": g["statistic"], "lot": g["lot"], "rig": g["rig"], "site": g["site"],
+            "unit": g["unit"], "n": n, "mean": np.where(n > 0, s1 / n.where(n > 0), np.nan),
+            "first": pd.to_datetime(g["first"]), "last": pd.to_datetime(g["last"])}))
+    return pd.concat(frames, ignore_index=True)[cols] if frames else pd.DataFrame(columns=cols)
 
 
 def block_summaries(conn, profile: str, model_ids: dict, limits: dict) -> pd.DataFrame:
@@ -191,12 +196,6 @@ def backgrounds(conn, profile: str) -> pd.DataFrame:
         "levels": [from_f32(r.levels_f32, (r.n_bands,)).astype(float) for r in rows]})
 
 
-def _lock(conn, profile: str) -> None:
-    if conn.dialect.name == "postgresql":
-        key = zlib.crc32(f"harken.signals.{profile}".encode()) - 2**31
-        conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": key})
-
-
 def _time(v):
     if v is None or (isinstance(v, float) and np.isnan(v)):
         return None
@@ -207,7 +206,7 @@ def _time(v):
 def refresh_signals(conn, profile: str, *, now=None) -> dict:
     """Recompute every signal of ``profile`` and write them (module docstring); returns counts
     {"active", "new", "ended"}."""
-    _lock(conn, profile)
+    profile_lock(conn, profile)
     now = now or db.utc_now()
     limits, refs, ids = model_levels(conn, profile)
     units = unit_summaries(conn, profile, ids)

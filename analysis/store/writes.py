@@ -15,6 +15,7 @@ from sqlalchemy import and_, bindparam, func, select
 from sqlalchemy.dialects import postgresql, sqlite
 
 from . import audit as _audit
+from . import summaries
 from .codec import f32, f64, num, resonances_blob, text
 from .errors import StoreError
 from .integrity import flags_digest, model_digest, qc_digest
@@ -235,6 +236,8 @@ def commit_analyses(conn, cache, items: list[Analysed], *, worker) -> list[int |
         conn.execute(backgrounds.insert(), bg_rows)
     for (model_id, event), scored in by_model.items():
         insert_scores(conn, model_id, event, scored)
+    # The per-day summaries the views read, recomputed for the cells this batch touched, in its transaction.
+    summaries.refresh_for(conn, act_ids)
     # The decisions at every level move with each batch, in the same transaction as the actuations behind them.
     for profile in sorted({it.result.profile for it in keep}):
         refresh_signals(conn, profile)
@@ -301,6 +304,8 @@ def insert_model(conn, *, profile, event, model_json: str, model_npz: bytes, met
     model_id = conn.execute(reference_models.insert().values(
         status="active" if activate else "pending", content_sha256=model_digest(row), **row,
     ).returning(reference_models.c.id)).scalar_one()
+    if activate:
+        summaries.refresh_counts(conn, profile)  # the retired version's flags no longer count
     audit(conn, person=created_by, action="reference.build", target=f"model {model_id}",
           detail={"profile": profile, "event": event, "version": version, "active": activate,
                   "reference_lots": list(meta.get("reference_lots", [])), "n_recordings": meta.get("n_recordings"),
@@ -318,6 +323,7 @@ def _make_active(conn, model_id: int, profile, event) -> None:
     """Make a stored version the one active version of its profile and event (the old one retired)."""
     _retire_active(conn, profile, event)
     conn.execute(reference_models.update().where(reference_models.c.id == model_id).values(status="active"))
+    summaries.refresh_counts(conn, profile)  # which flags count has changed
 
 
 def activate_model(conn, model_id, *, person, where):

@@ -138,11 +138,11 @@ def register(app, ctx):
         """
         function(click) {
             const nu = window.dash_clientside.no_update;
-            if (!click || !click.points || !click.points.length || !click.points[0].customdata) { return nu; }
-            const cd = click.points[0].customdata;
-            if (cd[0] === 'actuation') {
+            if (!click || !click.points || !click.points.length || click.points[0].customdata == null) { return nu; }
+            const cd = click.points[0].customdata;  // an actuation's id, or ['lot', lot, rig]
+            if (typeof cd === 'number') {
                 const meeting = document.body.classList.contains('meeting');
-                window.history.pushState({}, '', '/actuation/' + parseInt(cd[1], 10) + (meeting ? '?meeting=1' : ''));
+                window.history.pushState({}, '', '/actuation/' + Math.round(cd) + (meeting ? '?meeting=1' : ''));
                 window.dispatchEvent(new CustomEvent('_dashprivate_pushstate'));
                 window.scrollTo(0, 0);
                 return nu;

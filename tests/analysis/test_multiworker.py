@@ -12,8 +12,8 @@ from pathlib import Path
 
 import pytest
 
-from analysis.store import Store
-from tests.analysis.conftest import drop_pg_database, make_pg_database
+from analysis.store import Store, summaries
+from tests.analysis.conftest import drop_pg_database, make_pg_database, run_cli
 from tests.conftest import sidecar_dict, write_recording
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -71,5 +71,12 @@ def test_three_workers_one_killed_store_every_recording_exactly_once(pg_url, tmp
         assert conn.exec_driver_sql("SELECT count(*) FROM recordings").scalar() == N
         assert conn.exec_driver_sql("SELECT count(*) FROM actuations").scalar() == N  # none twice
         assert conn.exec_driver_sql("SELECT count(*) FROM recordings WHERE status <> 'analysed'").scalar() == 0
+    # The per-day summaries three workers kept concurrently (cells shared between them, one killed mid-batch)
+    # are what the raw rows give, and the command a lab runs says so.
+    with Store.open(pg_url, create=False) as store, store.read() as conn:
+        assert summaries.differences(conn) == []
+        assert conn.exec_driver_sql("SELECT sum(n_all) FROM cell_counts").scalar() == N
+    rc, out, _ = run_cli("check", "summaries", "--store", pg_url)
+    assert rc == 0 and "0 difference(s)" in out
     assert not list(inbox.rglob("*.flac"))  # every delivered file was taken in and removed
     assert len(list((tmp_path / "harken-archive").rglob("*.flac"))) == N

@@ -25,9 +25,10 @@ def test_lot_chart_figure_draws_cloud_with_webgl_and_clickable_points():
                           "flagged": [False, True, True]})
     fig = figures.lot_chart_figure(_chart(), statistic("event_spe_ratio"), cloud=cloud)
     gl = [t for t in fig.data if isinstance(t, go.Scattergl)]
-    assert {t.name for t in gl} == {"single actuations (thinned)", "flagged actuations"}
+    assert {t.name for t in gl} == {"single actuations (sampled)", "flagged actuations"}
     flagged = next(t for t in gl if t.name == "flagged actuations")
-    assert [list(c) for c in flagged.customdata] == [["actuation", "2"], ["actuation", "3"]]
+    assert list(flagged.customdata) == [2, 3]  # the id, which a click opens
+    assert "R1" in flagged.hovertemplate
     rig = next(t for t in fig.data if t.name == "R1")
     assert list(rig.customdata[0]) == ["lot", "A", "R1"]
     assert fig.layout.yaxis.type == "log"
@@ -79,3 +80,17 @@ def test_rig_figures_and_empty_states():
     assert [b.text[1] for b in rates.data] == ["200", "5"]
     empty = figures.rig_distribution_figure(np.array([]), hist.iloc[:0], summary, statistic("onset_s"))
     assert "No values" in empty.layout.annotations[0].text
+
+
+def test_the_cloud_has_one_trace_per_rig_and_kind_with_one_legend_entry_each():
+    cloud = pd.DataFrame({"actuation_id": [1, 2, 3, 4], "lot": ["A", "A", "D", "D"], "rig": ["R1", "R2", "R1", "R2"],
+                          "site": "S", "recorded_at": pd.date_range("2026-01-01", periods=4),
+                          "value": [1.0, 1.2, 8.0, 9.0], "flagged": [False, False, True, True]})
+    fig = figures.lot_chart_figure(_chart(), statistic("event_spe_ratio"), cloud=cloud)
+    gl = [t for t in fig.data if isinstance(t, go.Scattergl)]
+    assert len(gl) == 4
+    assert sorted(int(v) for t in gl for v in t.customdata) == [1, 2, 3, 4]
+    shown = [t.name for t in gl if t.showlegend]
+    assert sorted(shown) == ["flagged actuations", "single actuations (sampled)"]
+    r2 = [t for t in gl if "R2" in t.hovertemplate]
+    assert sorted(int(v) for t in r2 for v in t.customdata) == [2, 4]

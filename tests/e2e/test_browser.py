@@ -41,16 +41,16 @@ FLAGGED_POINT_JS = """
   const data = gd._fullData, xa = gd._fullLayout.xaxis, ya = gd._fullLayout.yaxis;
   const box = gd.querySelector('.nsewdrag').getBoundingClientRect();
   const px = (t, i) => [box.left + xa.c2p(t.x[i]), box.top + ya.c2p(t.y[i])];
+  const f = data.find(t => t.name === 'flagged actuations');  // the first rig's (one trace per rig)
   const others = [];
-  data.forEach(t => { if (t.name !== 'flagged actuations' && t.visible !== false && t.x && t.mode !== 'lines+text') {
+  data.forEach(t => { if (t !== f && t.visible !== false && t.x && t.mode !== 'lines+text') {
       for (let i = 0; i < t.x.length; i++) others.push(px(t, i)); } });
-  const f = data.find(t => t.name === 'flagged actuations');
   let best = null;
   for (let i = 0; i < f.x.length; i++) {
     const p = px(f, i);
     let d = 1e9;
     others.forEach(o => { d = Math.min(d, Math.hypot(o[0] - p[0], o[1] - p[1])); });
-    if (best === null || d > best.d) best = {x: p[0], y: p[1], d: d, id: f.customdata[i][1]};
+    if (best === null || d > best.d) best = {x: p[0], y: p[1], d: d, id: Math.round(f.customdata[i])};
   }
   return best;
 }
@@ -70,7 +70,7 @@ def test_click_on_a_flagged_point_opens_its_actuation(page, server):
     page.wait_for_url(re.compile(r"/actuation/\d+"))
     page.wait_for_selector("#app-page h1:has-text('Actuation')")
     _settle(page)
-    assert page.locator("#app-page h1").inner_text() == f"Actuation {target['id']}"
+    assert page.locator("#app-page h1").inner_text() == f"Actuation {int(target['id'])}"
     assert page.errors == []
 
 

@@ -1,6 +1,9 @@
-"""Aggregates computed in SQL: what the filters offer, per-lot points, the thinned cloud of actuations, per-rig
+"""Aggregates for the views: what the filters offer, per-lot points, the sampled cloud of actuations, per-rig
 summaries and histograms, the reference lots' summary, the evidence behind suggested causes, flag counts, and the
-store's fingerprint. What comes back is what is drawn, whatever the number of actuations in the store.
+store's fingerprint. What comes back is what is drawn, whatever the number of actuations in the store: the means,
+SDs and counts are sums over the per-day summaries (analysis.store.summaries), whose size grows with lots x rigs
+x units x days; single values (the cloud, histograms) are read raw up to a fixed number and from the stratified
+sample above it.
 
 One rule for the values of a statistic: only actuations that passed their quality checks give values (a
 recording that failed one points at the recording, not at its lot or rig); every actuation counts in the
@@ -9,20 +12,18 @@ actuation and flag counts. Log statistics (positive ratios) are summarised on th
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pandas as pd
-from sqlalchemy import Integer, and_, case, func, literal, or_, select
+from sqlalchemy import Integer, and_, case, func, select
 
 from .. import schema as db
 from ..errors import StoreError
+from ..summaries import sampling_key
 from ..types import Filters, Statistic, statistic
 from ._base import (
     active_model_ids,
+    counted_flag,
     df,
-    is_flagged,
-    model_flag,
     placed,
     sd_from_moments,
     sd_from_moments_scalar,
@@ -57,22 +58,81 @@ def _summarised(stat: Statistic, value):
     return case((ok, value), else_=None)
 
 
+SS, CC, CS = db.stat_summaries, db.cell_counts, db.cloud_sample
+
+#: Values read raw when the selection holds at most this many; from the stratified sample above it.
+HISTOGRAM_VALUES = 10_000
+
+
+def _cells(table):
+    """A summary table joined with its rig, site and lot."""
+    return (table.join(db.rigs, db.rigs.c.id == table.c.rig_id).join(db.sites, db.sites.c.id == db.rigs.c.site_id)
+            .join(db.lots, db.lots.c.id == table.c.lot_id))
+
+
+def _where_cells(stmt, table, f: Filters):
+    """where() for a summary table: the same filters, on its profile and day."""
+    if f.profile:
+        stmt = stmt.where(table.c.profile == f.profile)
+    if f.sites:
+        stmt = stmt.where(db.sites.c.name.in_(list(f.sites)))
+    if f.rigs:
+        stmt = stmt.where(db.rigs.c.name.in_(list(f.rigs)))
+    if f.lots:
+        stmt = stmt.where(db.lots.c.name.in_(list(f.lots)))
+    if f.date_from:
+        stmt = stmt.where(table.c.day >= f.date_from)
+    if f.date_to:
+        stmt = stmt.where(table.c.day <= f.date_to)
+    return stmt
+
+
+def _of_statistic(conn, stat: Statistic, event: str, profile: str | None):
+    """Condition on stat_summaries rows: this event and statistic, under the active model where it needs one."""
+    cond = and_(SS.c.event == event, SS.c.statistic == stat.key)
+    if stat.table == "trajectories":
+        return and_(cond, SS.c.model_id.in_(active_model_ids(conn, profile, event) or [-1]))
+    return and_(cond, SS.c.model_id == 0)
+
+
+def _moments(conn, stat, event, filters, keys, *, extra=None):
+    cols = [func.sum(SS.c.n).label("n"), func.sum(SS.c.s1).label("s1"), func.sum(SS.c.s2).label("s2"),
+            func.min(SS.c.lo).label("lo"), func.max(SS.c.hi).label("hi")]
+    stmt = select(*keys, *cols).select_from(_cells(SS)).where(_of_statistic(conn, stat, event, filters.profile))
+    if extra is not None:
+        stmt = stmt.where(extra)
+    out = df(conn, _where_cells(stmt.group_by(*keys), SS, filters))
+    n = out["n"].astype(float)
+    out["m"] = out["s1"].astype(float) / n.where(n > 0)
+    out["m2"] = out["s2"].astype(float) / n.where(n > 0)
+    return out
+
+
+def _counts(conn, filters, keys):
+    stmt = (select(*keys, func.sum(CC.c.n_all).label("n_all"), func.sum(CC.c.n_flagged).label("n_flagged"),
+                   func.sum(CC.c.n_qc_failed).label("qc_failed"),
+                   func.sum(CC.c.n_model_flagged).label("n_model_flagged"),
+                   func.min(CC.c.first).label("first"), func.max(CC.c.last).label("last"))
+            .select_from(_cells(CC)).group_by(*keys))
+    return df(conn, _where_cells(stmt, CC, filters))
+
+
 def choices(conn, profile: str | None = None) -> dict:
     """What the filters offer: profiles, sites, rigs (with their site), lots (in time order), events per profile,
-    and the first and last recording day (UTC)."""
-    a, m = db.actuations, db.reference_models
-    prof = sorted(conn.execute(select(a.c.profile).distinct()).scalars())
+    and the first and last recording day (UTC). Read from the cell counts."""
+    m = db.reference_models
+    prof = sorted(conn.execute(select(CC.c.profile).distinct()).scalars())
     rig_rows = conn.execute(select(db.rigs.c.name, db.sites.c.name.label("site"))
                             .select_from(db.rigs.join(db.sites, db.sites.c.id == db.rigs.c.site_id))
                             .order_by(db.sites.c.name, db.rigs.c.name)).all()
-    lot_stmt = (select(db.lots.c.name, func.min(a.c.recorded_at).label("first"))
-                .select_from(db.lots.join(a, a.c.lot_id == db.lots.c.id))
-                .group_by(db.lots.c.name).order_by(func.min(a.c.recorded_at)))
+    lot_stmt = (select(db.lots.c.name, func.min(CC.c.first).label("first"))
+                .select_from(db.lots.join(CC, CC.c.lot_id == db.lots.c.id))
+                .group_by(db.lots.c.name).order_by(func.min(CC.c.first)))
     if profile:
-        lot_stmt = lot_stmt.where(a.c.profile == profile)
+        lot_stmt = lot_stmt.where(CC.c.profile == profile)
     ev = conn.execute(select(m.c.profile, m.c.event).distinct()).all()
-    ev_found = conn.execute(select(db.events.c.name).distinct()).scalars().all() if not ev else []
-    span = conn.execute(select(func.min(a.c.recorded_at), func.max(a.c.recorded_at))).first()
+    ev_found = conn.execute(select(SS.c.event).distinct()).scalars().all() if not ev else []
+    span = conn.execute(select(func.min(CC.c.first), func.max(CC.c.last))).first()
     events_by_profile: dict[str, list[str]] = {}
     for p, e in ev:
         events_by_profile.setdefault(p, []).append(e)
@@ -90,60 +150,104 @@ def choices(conn, profile: str | None = None) -> dict:
 
 
 def lot_points(conn, stat_key: str, event: str, filters: Filters = Filters(), *, by_rig: bool = True) -> pd.DataFrame:
-    """One row per lot (and rig, when ``by_rig``): lot, rig ("all rigs" when pooled), site, n (values), value (the
-    mean, or for log statistics the geometric mean), sd (of the values, or of their natural logs), n_flagged and
-    n_all (actuations), first and last recording time (UTC). Ordered by the lot's first recording."""
+    """One row per lot (and rig, when ``by_rig``) with the event: lot, rig ("all rigs" when pooled), site, n
+    (values), value (the mean, or for log statistics the geometric mean), sd (of the values, or of their natural
+    logs), n_flagged and n_all (actuations of the lot, or lot and rig), first and last recording time (UTC).
+    Ordered by the lot's first recording. Read from the per-day summaries."""
     stat = statistic(stat_key)
-    base, value = _with_value(conn, stat, event, filters.profile)
-    a = db.actuations
-    v = _summarised(stat, value)
-    flagged = case((is_flagged(active_model_ids(conn)), 1), else_=0)
     keys = [db.lots.c.name.label("lot")]
     if by_rig:
         keys += [db.rigs.c.name.label("rig"), db.sites.c.name.label("site")]
-    stmt = (select(*keys, func.count(v).label("n"), func.avg(v).label("m"), func.avg(v * v).label("m2"),
-                   func.sum(flagged).label("n_flagged"), func.count(a.c.id).label("n_all"),
-                   func.min(a.c.recorded_at).label("first"), func.max(a.c.recorded_at).label("last"))
-            .select_from(base).group_by(*keys))
-    out = df(conn, where(stmt, filters))
+    out = _moments(conn, stat, event, filters, keys)
+    names = [k.name for k in keys]
+    out = out.merge(_counts(conn, filters, keys), on=names, how="left")
     if not by_rig:
         out["rig"] = "all rigs"
         out["site"] = ", ".join(filters.sites) if filters.sites else "all sites"
     if not len(out):
         return pd.DataFrame(columns=LOT_POINT_COLUMNS)
     m = out["m"].astype(float)
+    out["n"] = out["n"].astype(int)
     out["sd"] = sd_from_moments(out["n"], m, out["m2"])
     out["value"] = np.exp(m) if stat.log else m
     out["first"] = pd.to_datetime(out["first"])
     out["last"] = pd.to_datetime(out["last"])
-    out["n_flagged"] = out["n_flagged"].fillna(0).astype(int)
+    for c in ("n_flagged", "n_all"):
+        out[c] = out[c].fillna(0).astype(int)
     out = out.sort_values(["first", "rig"]).reset_index(drop=True)
     return out[LOT_POINT_COLUMNS]
 
 
-def actuation_cloud(conn, stat_key: str, event: str, filters: Filters = Filters(), *,
-                    max_points: int = 4000, n_total: int | None = None) -> pd.DataFrame:
-    """Single actuations to draw behind the lot points: every flagged one and an even thinning of the rest
-    (every k-th by id) so that at most about ``max_points`` come back. ``n_total``: the number of actuations
-    with a value, when the caller has it already (saves a count). Columns: actuation_id, lot, rig, site,
-    recorded_at (UTC), value, flagged."""
-    stat = statistic(stat_key)
+def _value_rows(conn, stat: Statistic, event: str, filters: Filters, *, budget: int, n_total: int,
+                summarised: bool):
+    """(statement of actuation_id, lot, rig, site, recorded_at, value) over the selection: every value when
+    there are at most ``budget``, else the first r of each (profile, lot, rig) stratum of the cloud sample, r
+    chosen so about ``budget`` come back (and, beyond ``budget`` strata, an even share of the strata)."""
     base, value = _with_value(conn, stat, event, filters.profile)
     a = db.actuations
-    fl = is_flagged(active_model_ids(conn))
+    v = _summarised(stat, value) if summarised else value
+    cols = [a.c.id.label("actuation_id"), db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"),
+            db.sites.c.name.label("site"), a.c.recorded_at, v.label("value")]
+    if n_total <= budget:
+        return where(select(*cols).select_from(base).where(v.is_not(None)), filters)
+    strata = select(func.count()).select_from(CS.join(a, a.c.id == CS.c.actuation_id).join(
+        db.rigs, db.rigs.c.id == a.c.rig_id).join(db.sites, db.sites.c.id == a.c.site_id).join(
+        db.lots, db.lots.c.id == a.c.lot_id)).where(CS.c.rank == 1)
+    n_strata = conn.execute(where(strata, filters)).scalar() or 0
+    r = max(1, budget // max(1, n_strata))
+    stmt = select(*cols).select_from(base.join(CS, CS.c.actuation_id == a.c.id)).where(
+        and_(CS.c.rank <= r, v.is_not(None)))
+    if n_strata > budget:
+        stmt = stmt.where(sampling_key(a.c.id) < int(2**32 * budget / n_strata))
+    return where(stmt, filters)
+
+
+def _total(conn, stat, event, filters) -> int:
+    stmt = select(func.sum(SS.c.n)).select_from(_cells(SS)).where(_of_statistic(conn, stat, event, filters.profile))
+    return int(conn.execute(_where_cells(stmt, SS, filters)).scalar() or 0)
+
+
+def actuation_cloud(conn, stat_key: str, event: str, filters: Filters = Filters(), *,
+                    max_points: int = 4000, n_total: int | None = None, max_flagged: int = 5000) -> pd.DataFrame:
+    """Single actuations to draw behind the lot points: flagged ones (the newest ``max_flagged`` of them) and
+    about ``max_points`` others, all of them when there are no more, else the stratified sample (every lot and
+    rig alike). ``n_total``: the number of values, when the caller has it already. Columns: actuation_id, lot,
+    rig, site, recorded_at (UTC), value, flagged."""
+    stat = statistic(stat_key)
+    a, f = db.actuations, db.flags
     if n_total is None:
-        count = where(select(func.count()).select_from(base).where(value.is_not(None)), filters)
-        n_total = conn.execute(count).scalar() or 0
-    k = max(1, math.ceil(int(n_total) / max(1, max_points)))
-    keep = literal(True) if k == 1 else or_(fl, (a.c.id % k) == 0)
-    stmt = (select(a.c.id.label("actuation_id"), db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"),
-                   db.sites.c.name.label("site"), a.c.recorded_at, value.label("value"),
-                   case((fl, True), else_=False).label("flagged"))
-            .select_from(base).where(value.is_not(None)).where(keep))
-    out = df(conn, where(stmt, filters))
-    out["flagged"] = out["flagged"].astype(bool)
+        n_total = _total(conn, stat, event, filters)
+    active = active_model_ids(conn)
+    flag_ids: set[int] = set()
+    # Newest first along the flags' index, one model (and the quality-check flags) at a time: stops at the cap.
+    for cond in [f.c.model_id == mid for mid in active] + [f.c.model_id.is_(None)]:
+        q = (select(f.c.actuation_id).select_from(f.join(a, a.c.id == f.c.actuation_id).join(
+            db.rigs, db.rigs.c.id == a.c.rig_id).join(db.sites, db.sites.c.id == a.c.site_id).join(
+            db.lots, db.lots.c.id == a.c.lot_id)).where(cond).distinct()
+             .order_by(f.c.actuation_id.desc()).limit(max_flagged))
+        flag_ids |= set(conn.execute(where(q, filters)).scalars())
+    flag_ids = set(sorted(flag_ids, reverse=True)[:max_flagged])
+    rest = df(conn, _value_rows(conn, stat, event, filters, budget=max_points, n_total=n_total, summarised=False))
+    base, value = _with_value(conn, stat, event, filters.profile)
+    parts = [rest]
+    ids = sorted(flag_ids - set(rest["actuation_id"]))
+    for i in range(0, len(ids), 900):
+        stmt = (select(a.c.id.label("actuation_id"), db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"),
+                       db.sites.c.name.label("site"), a.c.recorded_at, value.label("value"))
+                .select_from(base).where(and_(a.c.id.in_(ids[i:i + 900]), value.is_not(None))))
+        parts.append(df(conn, stmt))
+    out = pd.concat([p for p in parts if len(p)], ignore_index=True) if any(len(p) for p in parts) else rest
+    out = out.sort_values("actuation_id").reset_index(drop=True)
+    # A sampled actuation beyond the flagged cap is still flagged: asked of the flags for these rows alone.
+    sampled_flagged = set()
+    others = sorted(set(out["actuation_id"].astype(int)) - flag_ids)
+    for i in range(0, len(others), 900):
+        sampled_flagged |= set(conn.execute(
+            select(f.c.actuation_id).where(and_(f.c.actuation_id.in_(others[i:i + 900]), counted_flag(active)))
+        ).scalars())
+    out["flagged"] = out["actuation_id"].isin(flag_ids | sampled_flagged).astype(bool)
     out["recorded_at"] = pd.to_datetime(out["recorded_at"])
-    return out
+    return out[["actuation_id", "lot", "rig", "site", "recorded_at", "value", "flagged"]]
 
 
 RIG_SUMMARY_COLUMNS = ["site", "rig", "actuations", "n", "mean", "sd", "lo", "hi", "flagged", "qc_failed",
@@ -151,26 +255,22 @@ RIG_SUMMARY_COLUMNS = ["site", "rig", "actuations", "n", "mean", "sd", "lo", "hi
 
 
 def rig_summary(conn, stat_key: str, event: str, filters: Filters = Filters()) -> pd.DataFrame:
-    """Per rig: site, rig, actuations, n (with a value), mean and sd of the statistic (of its natural log for
-    log statistics), lo and hi (its range on that scale), flagged actuations, quality-check failures, and the
-    rates per 1,000 actuations."""
+    """Per rig with the event: site, rig, actuations, n (with a value), mean and sd of the statistic (of its
+    natural log for log statistics), lo and hi (its range on that scale), flagged actuations, quality-check
+    failures, and the rates per 1,000 actuations. Read from the per-day summaries."""
     stat = statistic(stat_key)
-    base, value = _with_value(conn, stat, event, filters.profile)
-    a = db.actuations
-    v = _summarised(stat, value)
-    stmt = (select(db.sites.c.name.label("site"), db.rigs.c.name.label("rig"), func.count(a.c.id).label("actuations"),
-                   func.count(v).label("n"), func.avg(v).label("m"), func.avg(v * v).label("m2"),
-                   func.min(v).label("lo"), func.max(v).label("hi"),
-                   func.sum(case((is_flagged(active_model_ids(conn)), 1), else_=0)).label("flagged"),
-                   func.sum(case((a.c.passed_qc.is_(False), 1), else_=0)).label("qc_failed"))
-            .select_from(base).group_by(db.sites.c.name, db.rigs.c.name).order_by(db.sites.c.name, db.rigs.c.name))
-    out = df(conn, where(stmt, filters))
+    keys = [db.sites.c.name.label("site"), db.rigs.c.name.label("rig")]
+    out = _moments(conn, stat, event, filters, keys)
+    out = out.merge(_counts(conn, filters, keys), on=["site", "rig"], how="left")
     if not len(out):
         return pd.DataFrame(columns=RIG_SUMMARY_COLUMNS)
+    out = out.sort_values(["site", "rig"]).reset_index(drop=True)
+    out["n"] = out["n"].astype(int)
+    out["actuations"] = out["n_all"].fillna(0).astype(int)
     out["mean"] = out["m"].astype(float)
     out["sd"] = sd_from_moments(out["n"], out["m"], out["m2"])
-    for c in ("flagged", "qc_failed"):
-        out[c] = out[c].fillna(0).astype(int)
+    out["flagged"] = out["n_flagged"].fillna(0).astype(int)
+    out["qc_failed"] = out["qc_failed"].fillna(0).astype(int)
     out["flags_per_1000"] = 1000.0 * out["flagged"] / out["actuations"]
     out["qc_failures_per_1000"] = 1000.0 * out["qc_failed"] / out["actuations"]
     return out[RIG_SUMMARY_COLUMNS]
@@ -183,82 +283,83 @@ def reference_summary(conn, stat_key: str, event: str, filters: Filters = Filter
     if not ref:
         return {}
     stat = statistic(stat_key)
-    base, value = _with_value(conn, stat, event, filters.profile)
-    v = _summarised(stat, value)
-    stmt = select(func.count(v), func.avg(v), func.avg(v * v)).select_from(base).where(db.lots.c.name.in_(ref))
+    stmt = (select(func.sum(SS.c.n), func.sum(SS.c.s1), func.sum(SS.c.s2)).select_from(_cells(SS))
+            .where(and_(_of_statistic(conn, stat, event, filters.profile), db.lots.c.name.in_(ref))))
     if filters.profile:
-        stmt = stmt.where(db.actuations.c.profile == filters.profile)
-    n, m, m2 = conn.execute(stmt).first()
+        stmt = stmt.where(SS.c.profile == filters.profile)
+    n, s1, s2 = conn.execute(stmt).first()
     if not n:
         return {}
-    return {"n": int(n), "mean": float(m), "sd": sd_from_moments_scalar(n, float(m), float(m2)), "lots": ref}
+    m, m2 = float(s1) / n, float(s2) / n
+    return {"n": int(n), "mean": m, "sd": sd_from_moments_scalar(n, m, m2), "lots": ref}
 
 
 def rig_histogram(conn, stat_key: str, event: str, filters: Filters = Filters(), *, n_bins: int = 40,
-                  lo: float | None = None, hi: float | None = None):
-    """Histogram of the statistic per rig, binned in SQL: (edges (n_bins + 1,), DataFrame rig, site, bin, count).
-    Log statistics are binned on their natural log. lo, hi: the range when the caller knows it (saves a scan)."""
+                  lo: float | None = None, hi: float | None = None, max_values: int = HISTOGRAM_VALUES):
+    """Histogram of the statistic per rig: (edges (n_bins + 1,), DataFrame rig, site, bin, count). Log
+    statistics are binned on their natural log. Every value when the selection has at most ``max_values``,
+    else the stratified sample (the shape per rig, each lot alike, not the counts). lo, hi: the range when the
+    caller knows it (the summaries keep it)."""
     stat = statistic(stat_key)
-    base, value = _with_value(conn, stat, event, filters.profile)
-    v = _summarised(stat, value)
+    n_total = _total(conn, stat, event, filters)
+    empty = np.array([]), pd.DataFrame(columns=["rig", "site", "bin", "count"])
+    if not n_total:
+        return empty
+    rows = _value_rows(conn, stat, event, filters, budget=max_values, n_total=n_total, summarised=True).subquery()
     if lo is None or hi is None:
-        lo, hi = conn.execute(where(select(func.min(v), func.max(v)).select_from(base), filters)).first()
-    if lo is None:
-        return np.array([]), pd.DataFrame(columns=["rig", "site", "bin", "count"])
+        lo, hi = conn.execute(select(func.min(rows.c.value), func.max(rows.c.value))).first()
+        if lo is None:
+            return empty
     lo, hi = float(lo), float(hi)
     if hi <= lo:
         hi = lo + 1.0
     width = (hi - lo) / n_bins
-    # floor, not a cast (PostgreSQL rounds on a cast); the maximum itself falls in the last bin
-    raw = func.cast(func.floor((v - lo) / width), Integer)
-    b = case((raw > n_bins - 1, n_bins - 1), else_=raw)
-    stmt = (select(db.rigs.c.name.label("rig"), db.sites.c.name.label("site"), b.label("bin"),
-                   func.count().label("count"))
-            .select_from(base).where(v.is_not(None)).group_by(db.rigs.c.name, db.sites.c.name, b))
-    return lo + width * np.arange(n_bins + 1), df(conn, where(stmt, filters))
+    # floor, not a cast (PostgreSQL rounds on a cast); the maximum itself falls in the last bin, and a value
+    # outside a range the caller gave falls in the bin at that end
+    raw = func.cast(func.floor((rows.c.value - lo) / width), Integer)
+    b = case((raw > n_bins - 1, n_bins - 1), (raw < 0, 0), else_=raw)
+    stmt = (select(rows.c.rig, rows.c.site, b.label("bin"), func.count().label("count"))
+            .group_by(rows.c.rig, rows.c.site, b))
+    return lo + width * np.arange(n_bins + 1), df(conn, stmt)
 
 
 def triage_evidence(conn, lot_names, rig_names, *, lots_window: int = 6) -> pd.DataFrame:
     """Counts behind the suggested causes: per (lot, rig) among the given lots and the last ``lots_window`` lots
     seen on each given rig: actuations and actuations with an active model flag (quality-check flags excluded,
-    they point at the recording). Columns: lot, rig, actuations, flagged, first (UTC)."""
-    a = db.actuations
-    active = active_model_ids(conn)
+    they point at the recording). Columns: lot, rig, actuations, flagged, first (UTC). From the cell counts."""
     recent = set(lot_names)
     for rig in rig_names:
-        q = (select(db.lots.c.name).select_from(a.join(db.lots, db.lots.c.id == a.c.lot_id)
-                                                .join(db.rigs, db.rigs.c.id == a.c.rig_id))
-             .where(db.rigs.c.name == rig).group_by(db.lots.c.name)
-             .order_by(func.max(a.c.recorded_at).desc()).limit(lots_window))
+        q = (select(db.lots.c.name).select_from(_cells(CC)).where(db.rigs.c.name == rig).group_by(db.lots.c.name)
+             .order_by(func.max(CC.c.last).desc()).limit(lots_window))
         recent |= set(conn.execute(q).scalars())
     if not recent:
         return pd.DataFrame(columns=["lot", "rig", "actuations", "flagged", "first"])
-    stmt = (select(db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"), func.count(a.c.id).label("actuations"),
-                   func.sum(case((is_flagged(active, which=model_flag), 1), else_=0)).label("flagged"),
-                   func.min(a.c.recorded_at).label("first"))
-            .select_from(a.join(db.lots, db.lots.c.id == a.c.lot_id).join(db.rigs, db.rigs.c.id == a.c.rig_id))
-            .where(db.lots.c.name.in_(sorted(recent))).group_by(db.lots.c.name, db.rigs.c.name))
+    stmt = (select(db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"), func.sum(CC.c.n_all).label("actuations"),
+                   func.sum(CC.c.n_model_flagged).label("flagged"), func.min(CC.c.first).label("first"))
+            .select_from(_cells(CC)).where(db.lots.c.name.in_(sorted(recent)))
+            .group_by(db.lots.c.name, db.rigs.c.name))
     out = df(conn, stmt)
+    out["actuations"] = out["actuations"].fillna(0).astype(int)
     out["flagged"] = out["flagged"].fillna(0).astype(int)
     return out
 
 
 _GROUPS = {"site": db.sites.c.name, "rig": db.rigs.c.name, "lot": db.lots.c.name, "unit": db.units.c.name,
-           "profile": db.actuations.c.profile}
+           "profile": CC.c.profile}
 
 
 def flag_summary(conn, *, by=("rig", "lot")) -> pd.DataFrame:
     """Actuations, flagged actuations and the flagged fraction per group (default: per rig and lot; any of
-    site, rig, lot, unit, profile). Flagged: a flag that counts (quality-check or active model)."""
+    site, rig, lot, unit, profile). Flagged: a flag that counts (quality-check or active model). From the cell
+    counts."""
     bad = [b for b in by if b not in _GROUPS]
     if bad or not by:
         raise StoreError(f"flag summary groups by {', '.join(_GROUPS)}; got {list(by)!r}")
-    a = db.actuations
     keys = [_GROUPS[b].label(b) for b in by]
-    stmt = (select(*keys, func.count(a.c.id).label("actuations"),
-                   func.sum(case((is_flagged(active_model_ids(conn)), 1), else_=0)).label("flagged"))
-            .select_from(placed().join(db.units, db.units.c.id == a.c.unit_id)).group_by(*keys).order_by(*keys))
+    stmt = (select(*keys, func.sum(CC.c.n_all).label("actuations"), func.sum(CC.c.n_flagged).label("flagged"))
+            .select_from(_cells(CC).join(db.units, db.units.c.id == CC.c.unit_id)).group_by(*keys).order_by(*keys))
     out = df(conn, stmt)
+    out["actuations"] = out["actuations"].fillna(0).astype(int)
     out["flagged"] = out["flagged"].fillna(0).astype(int)
     out["flagged_fraction"] = out["flagged"] / out["actuations"]
     return out

@@ -94,6 +94,10 @@ def test_the_previous_releases_store_is_upgraded_and_keeps_its_contents(tmp_path
             # the upgrade chains the rows it found (revision 0005): the trail verifies, its head is recorded
             from analysis.store import audit as chain
             assert chain.verify(conn) == (3, None) and chain.head(conn)[0] == 3
+            # revision 0006 fills the per-day summaries from the rows it found: they agree with them
+            from analysis.store import summaries
+            assert summaries.differences(conn) == []
+            assert conn.exec_driver_sql("SELECT sum(n_all) FROM cell_counts").scalar() == 38
             quarantined = conn.exec_driver_sql(
                 "SELECT original_name, error FROM recordings WHERE status = 'quarantined'").fetchall()
             verdicts = conn.exec_driver_sql("SELECT person, verdict, note FROM verdicts").fetchall()
