@@ -34,7 +34,7 @@ from . import schema as db
 from .types import STATISTICS
 
 __all__ = ["SAMPLE_PER_STRATUM", "profile_lock", "refresh_for", "refresh_counts", "rebuild", "compute",
-           "differences", "day_of", "sampling_key"]
+           "differences", "day_of", "sampling_key", "sampling_keys"]
 
 #: Actuations kept per (profile, lot, rig) for the single-actuation cloud.
 SAMPLE_PER_STRATUM = 64
@@ -66,6 +66,11 @@ def day_of(column):
 def sampling_key(id_column):
     """The sampling key of an actuation id, in SQL (an integer in [0, 2^32))."""
     return (id_column * literal_column(str(_HASH_MUL))) % literal_column(str(_HASH_MOD))
+
+
+def sampling_keys(ids) -> np.ndarray:
+    """The sampling keys of actuation ids, in numpy (the same numbers as ``sampling_key`` in SQL)."""
+    return (np.asarray(ids, dtype=np.int64) * _HASH_MUL) % _HASH_MOD
 
 
 def _value(stat, column):

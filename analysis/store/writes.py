@@ -69,10 +69,16 @@ def claim(conn, content_hash, original_name, size_bytes, *, worker, claim_timeou
     ))
     if new_id is not None:
         return Claim("new", new_id, "claimed", original_name)
+    # PostgreSQL: SELECT ... FOR UPDATE SKIP LOCKED. A row another worker's transaction holds (it is claiming,
+    # renewing or committing it this instant) is passed over as busy instead of waited for; the row we get stays
+    # ours until commit, so the takeover below cannot race. SQLite's BEGIN IMMEDIATE already serialises writers.
     row = conn.execute(
         select(recordings.c.id, recordings.c.status, recordings.c.claimed_at, recordings.c.claimed_by,
                recordings.c.original_name).where(recordings.c.content_hash == content_hash)
-    ).one()
+        .with_for_update(skip_locked=True)
+    ).first()
+    if row is None:
+        return Claim("busy", None, "claimed", original_name)
     if row.status != "claimed":
         return Claim("duplicate", row.id, row.status, row.original_name)
     fresh = row.claimed_at is not None and row.claimed_at > now - timedelta(seconds=claim_timeout_s)

@@ -7,6 +7,7 @@ from __future__ import annotations
 import signal
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -80,3 +81,33 @@ def test_three_workers_one_killed_store_every_recording_exactly_once(pg_url, tmp
     assert rc == 0 and "0 difference(s)" in out
     assert not list(inbox.rglob("*.flac"))  # every delivered file was taken in and removed
     assert len(list((tmp_path / "harken-archive").rglob("*.flac"))) == N
+
+
+def test_a_claim_held_by_another_transaction_is_skipped_not_waited_for(pg_url, tmp_path):
+    # SELECT ... FOR UPDATE SKIP LOCKED: while one worker's transaction holds a recording's row (it is taking
+    # over or committing it), another worker's claim of the same content comes back "busy" at once.
+    from sqlalchemy import create_engine, text
+
+    with Store.open(pg_url, files_dir=tmp_path) as store:
+        first = store.claim("c" * 64, "z.flac", 10, worker="host-a:1", claim_timeout_s=300.0)
+        assert first.kind == "new"
+        engine = create_engine(pg_url)
+        try:
+            with engine.connect() as holder:
+                holder.execute(text("BEGIN"))
+                holder.execute(text("SELECT id FROM recordings WHERE id = :i FOR UPDATE"), {"i": first.recording_id})
+                # stale for this caller (timeout 0): without SKIP LOCKED it would wait for the holder's commit
+                got = []
+                t = threading.Thread(target=lambda: got.append(
+                    store.claim("c" * 64, "z.flac", 10, worker="host-b:2", claim_timeout_s=0.0)))
+                t.start()
+                t.join(timeout=10.0)
+                blocked = t.is_alive()
+                holder.execute(text("ROLLBACK"))  # frees a claim that waited, so the thread ends either way
+                t.join(timeout=30.0)
+        finally:
+            engine.dispose()
+        assert not blocked, "the claim waited for the row's lock instead of skipping it"
+        assert got[0].kind == "busy"
+        # once the row is free the stale claim is taken over as before
+        assert store.claim("c" * 64, "z.flac", 10, worker="host-b:2", claim_timeout_s=0.0).kind == "retry"

@@ -14,11 +14,11 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from sqlalchemy import Integer, and_, case, func, select
+from sqlalchemy import and_, case, func, select
 
 from .. import schema as db
 from ..errors import StoreError
-from ..summaries import sampling_key
+from ..summaries import sampling_keys
 from ..types import Filters, Statistic, statistic
 from ._base import (
     active_model_ids,
@@ -178,28 +178,36 @@ def lot_points(conn, stat_key: str, event: str, filters: Filters = Filters(), *,
     return out[LOT_POINT_COLUMNS]
 
 
-def _value_rows(conn, stat: Statistic, event: str, filters: Filters, *, budget: int, n_total: int,
-                summarised: bool):
-    """(statement of actuation_id, lot, rig, site, recorded_at, value) over the selection: every value when
-    there are at most ``budget``, else the first r of each (profile, lot, rig) stratum of the cloud sample, r
-    chosen so about ``budget`` come back (and, beyond ``budget`` strata, an even share of the strata)."""
+def _value_frame(conn, stat: Statistic, event: str, filters: Filters, *, budget: int, n_total: int,
+                 summarised: bool) -> pd.DataFrame:
+    """actuation_id, lot, rig, site, recorded_at, value over the selection: every value when there are at most
+    ``budget``, else the first r of each (profile, lot, rig) stratum of the cloud sample that has actuations in
+    the selection, r chosen so about ``budget`` come back (and, beyond ``budget`` strata, an even share of the
+    strata). The sample's ids are read first and their values looked up by id, so the work does not grow with
+    the store."""
     base, value = _with_value(conn, stat, event, filters.profile)
     a = db.actuations
     v = _summarised(stat, value) if summarised else value
     cols = [a.c.id.label("actuation_id"), db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"),
             db.sites.c.name.label("site"), a.c.recorded_at, v.label("value")]
     if n_total <= budget:
-        return where(select(*cols).select_from(base).where(v.is_not(None)), filters)
-    strata = select(func.count()).select_from(CS.join(a, a.c.id == CS.c.actuation_id).join(
-        db.rigs, db.rigs.c.id == a.c.rig_id).join(db.sites, db.sites.c.id == a.c.site_id).join(
-        db.lots, db.lots.c.id == a.c.lot_id)).where(CS.c.rank == 1)
-    n_strata = conn.execute(where(strata, filters)).scalar() or 0
-    r = max(1, budget // max(1, n_strata))
-    stmt = select(*cols).select_from(base.join(CS, CS.c.actuation_id == a.c.id)).where(
-        and_(CS.c.rank <= r, v.is_not(None)))
-    if n_strata > budget:
-        stmt = stmt.where(sampling_key(a.c.id) < int(2**32 * budget / n_strata))
-    return where(stmt, filters)
+        return df(conn, where(select(*cols).select_from(base).where(v.is_not(None)), filters))
+    strata = df(conn, _where_cells(select(CC.c.profile, CC.c.lot_id, CC.c.rig_id).select_from(_cells(CC))
+                                   .distinct(), CC, filters))
+    r = max(1, budget // max(1, len(strata)))
+    q = select(CS.c.actuation_id, CS.c.profile, CS.c.lot_id, CS.c.rig_id).where(CS.c.rank <= r)
+    if filters.profile:
+        q = q.where(CS.c.profile == filters.profile)
+    picked = df(conn, q).merge(strata, on=["profile", "lot_id", "rig_id"])
+    if len(strata) > budget:
+        picked = picked[sampling_keys(picked["actuation_id"]) < 2**32 * budget / len(strata)]
+    ids = sorted(int(i) for i in picked["actuation_id"])
+    parts = [df(conn, where(select(*cols).select_from(base).where(and_(a.c.id.in_(ids[k:k + 900]),
+                                                                        v.is_not(None))), filters))
+             for k in range(0, len(ids), 900)]
+    parts = [p for p in parts if len(p)]
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
+        columns=["actuation_id", "lot", "rig", "site", "recorded_at", "value"])
 
 
 def _total(conn, stat, event, filters) -> int:
@@ -227,7 +235,7 @@ def actuation_cloud(conn, stat_key: str, event: str, filters: Filters = Filters(
              .order_by(f.c.actuation_id.desc()).limit(max_flagged))
         flag_ids |= set(conn.execute(where(q, filters)).scalars())
     flag_ids = set(sorted(flag_ids, reverse=True)[:max_flagged])
-    rest = df(conn, _value_rows(conn, stat, event, filters, budget=max_points, n_total=n_total, summarised=False))
+    rest = _value_frame(conn, stat, event, filters, budget=max_points, n_total=n_total, summarised=False)
     base, value = _with_value(conn, stat, event, filters.profile)
     parts = [rest]
     ids = sorted(flag_ids - set(rest["actuation_id"]))
@@ -305,22 +313,20 @@ def rig_histogram(conn, stat_key: str, event: str, filters: Filters = Filters(),
     empty = np.array([]), pd.DataFrame(columns=["rig", "site", "bin", "count"])
     if not n_total:
         return empty
-    rows = _value_rows(conn, stat, event, filters, budget=max_values, n_total=n_total, summarised=True).subquery()
+    vals = _value_frame(conn, stat, event, filters, budget=max_values, n_total=n_total, summarised=True)
+    if not len(vals):
+        return empty
+    v = vals["value"].to_numpy(dtype=float)
     if lo is None or hi is None:
-        lo, hi = conn.execute(select(func.min(rows.c.value), func.max(rows.c.value))).first()
-        if lo is None:
-            return empty
+        lo, hi = float(np.min(v)), float(np.max(v))
     lo, hi = float(lo), float(hi)
     if hi <= lo:
         hi = lo + 1.0
     width = (hi - lo) / n_bins
-    # floor, not a cast (PostgreSQL rounds on a cast); the maximum itself falls in the last bin, and a value
-    # outside a range the caller gave falls in the bin at that end
-    raw = func.cast(func.floor((rows.c.value - lo) / width), Integer)
-    b = case((raw > n_bins - 1, n_bins - 1), (raw < 0, 0), else_=raw)
-    stmt = (select(rows.c.rig, rows.c.site, b.label("bin"), func.count().label("count"))
-            .group_by(rows.c.rig, rows.c.site, b))
-    return lo + width * np.arange(n_bins + 1), df(conn, stmt)
+    # the maximum itself falls in the last bin; a value outside a range the caller gave, in the bin at that end
+    vals["bin"] = np.clip(np.floor((v - lo) / width), 0, n_bins - 1).astype(int)
+    hist = vals.groupby(["rig", "site", "bin"]).size().rename("count").reset_index()
+    return lo + width * np.arange(n_bins + 1), hist
 
 
 def triage_evidence(conn, lot_names, rig_names, *, lots_window: int = 6) -> pd.DataFrame:
