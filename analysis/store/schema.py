@@ -376,9 +376,9 @@ cell_counts = Table(
     Index("ix_cell_counts_lot", "lot_id", "rig_id"),
 )
 
-#: The single-actuation cloud's sample: per (profile, lot, rig) the actuations of the lowest sampling keys (a fixed
-#: hash of the id), ranked 1, 2, ... so a view takes the first r of every stratum; flagged actuations are read
-#: from the flags, not from here.
+#: The single-actuation cloud's sample: per (profile, lot, rig) the unflagged actuations of the lowest sampling
+#: keys (a fixed hash of the id), ranked 1, 2, ... so a view takes the first r of every stratum, and every flagged
+#: one, ranked -1, -2, ... from the newest.
 cloud_sample = Table(
     "cloud_sample", metadata,
     Column("actuation_id", Integer, ForeignKey("actuations.id"), primary_key=True),

@@ -9,14 +9,15 @@ A *cell* is (profile, lot, rig, unit, UTC day). Per cell three things are kept (
   their quality checks: what a mean, an SD and a pooled limit need, for any union of cells.
 - ``cell_counts``: every actuation, quality-check failures, flagged actuations (a flag that counts) and those
   flagged by an active model, and the first and last recording time.
-- ``cloud_sample``: per stratum (profile, lot, rig) the ``SAMPLE_PER_STRATUM`` actuations with the lowest sampling
-  key (a fixed multiplicative hash of the id, so any two computations pick the same ones), ranked 1, 2, ...: a
-  view that may draw ``max_points`` takes the first r of every stratum it shows.
+- ``cloud_sample``: per stratum (profile, lot, rig) the ``SAMPLE_PER_STRATUM`` unflagged actuations with the
+  lowest sampling key (a fixed multiplicative hash of the id, so any two computations pick the same ones), ranked
+  1, 2, ..., and every flagged one, ranked -1, -2, ... from the newest: a view that may draw ``max_points`` takes
+  the first r of every stratum it shows, and of the flagged the newest few of each.
 
 Each is recomputed from the raw rows for exactly the cells (strata) a write touched, never incremented: a
 recomputation is idempotent, and on PostgreSQL the profile's advisory lock (the one the signals refresh takes)
 makes concurrent writers take turns, each then seeing every row committed before it. Flag counts depend on which
-model versions are active, so a change of the active version recomputes the profile's counts.
+model versions are active, so a change of the active version recomputes the profile's counts and sample.
 ``differences`` recomputes everything and names what the stored summaries got wrong (``harken check summaries``).
 """
 
@@ -144,15 +145,22 @@ def _count_frame(conn, cond, profiles) -> pd.DataFrame:
     return out[CELL + COUNT_VALUES]
 
 
-def _sample_frame(conn, cond) -> pd.DataFrame:
-    """cloud_sample rows of the strata matching ``cond`` (a condition on actuations covering whole strata)."""
-    a = db.actuations
-    key = sampling_key(a.c.id)
-    rank = func.row_number().over(partition_by=(a.c.profile, a.c.lot_id, a.c.rig_id), order_by=(key, a.c.id))
-    inner = select(a.c.id.label("actuation_id"), a.c.profile, a.c.lot_id, a.c.rig_id, rank.label("rank")).where(
-        cond).subquery()
-    res = conn.execute(select(inner).where(inner.c.rank <= SAMPLE_PER_STRATUM))
-    return pd.DataFrame(res.fetchall(), columns=["actuation_id", "profile", "lot_id", "rig_id", "rank"])
+def _sample_frame(conn, cond, profiles) -> pd.DataFrame:
+    """cloud_sample rows of the strata matching ``cond`` (a condition on actuations covering whole strata):
+    per stratum the SAMPLE_PER_STRATUM unflagged actuations of the lowest sampling key, ranked 1, 2, ..., and
+    every flagged one (a flag that counts), ranked -1, -2, ... from the newest."""
+    a, f = db.actuations, db.flags
+    active = _active_ids(conn, profiles) or [-1]
+    flagged = exists().where(and_(f.c.actuation_id == a.c.id, f.c.model_id.is_(None) | f.c.model_id.in_(active)))
+    is_fl = case((flagged, 1), else_=0)
+    rank = func.row_number().over(partition_by=(a.c.profile, a.c.lot_id, a.c.rig_id, is_fl),
+                                  order_by=(case((flagged, -a.c.id), else_=sampling_key(a.c.id)), a.c.id))
+    inner = select(a.c.id.label("actuation_id"), a.c.profile, a.c.lot_id, a.c.rig_id, is_fl.label("fl"),
+                   rank.label("rank")).where(cond).subquery()
+    res = conn.execute(select(inner).where((inner.c.fl == 1) | (inner.c.rank <= SAMPLE_PER_STRATUM)))
+    out = pd.DataFrame(res.fetchall(), columns=["actuation_id", "profile", "lot_id", "rig_id", "fl", "rank"])
+    out["rank"] = np.where(out["fl"] == 1, -out["rank"], out["rank"]).astype(int)
+    return out.drop(columns="fl")
 
 
 def compute(conn, *, profile: str | None = None) -> dict[str, pd.DataFrame]:
@@ -162,7 +170,7 @@ def compute(conn, *, profile: str | None = None) -> dict[str, pd.DataFrame]:
     cond = a.c.profile == profile if profile is not None else a.c.id.is_not(None)
     profiles = [profile] if profile is not None else list(conn.execute(select(a.c.profile).distinct()).scalars())
     return {"stat_summaries": _stat_frames(conn, cond), "cell_counts": _count_frame(conn, cond, profiles),
-            "cloud_sample": _sample_frame(conn, cond)}
+            "cloud_sample": _sample_frame(conn, cond, profiles)}
 
 
 def _records(frame: pd.DataFrame) -> list[dict]:
@@ -228,15 +236,19 @@ def refresh_for(conn, actuation_ids) -> int:
     conn.execute(db.cloud_sample.delete().where(tuple_(s.profile, s.lot_id, s.rig_id).in_(strata)))
     in_strata = and_(a.c.lot_id.in_(sorted({c[1] for c in strata})),
                      tuple_(a.c.profile, a.c.lot_id, a.c.rig_id).in_(strata))
-    _insert(conn, db.cloud_sample, _sample_frame(conn, in_strata))
+    _insert(conn, db.cloud_sample, _sample_frame(conn, in_strata, {c[0] for c in cells}))
     return len(cells)
 
 
 def refresh_counts(conn, profile: str) -> None:
-    """Recompute the cell counts of ``profile`` (which flags count moves when its active versions change)."""
+    """Recompute the cell counts and the sample of ``profile`` (which flags count moves when its active versions
+    change)."""
     profile_lock(conn, profile)
-    conn.execute(db.cell_counts.delete().where(db.cell_counts.c.profile == profile))
-    _insert(conn, db.cell_counts, _count_frame(conn, db.actuations.c.profile == profile, [profile]))
+    mine = db.actuations.c.profile == profile
+    for table in (db.cell_counts, db.cloud_sample):
+        conn.execute(table.delete().where(table.c.profile == profile))
+    _insert(conn, db.cell_counts, _count_frame(conn, mine, [profile]))
+    _insert(conn, db.cloud_sample, _sample_frame(conn, mine, [profile]))
 
 
 def rebuild(conn, *, profile: str | None = None) -> dict[str, int]:

@@ -268,6 +268,7 @@ def test_reference_build_runs_as_a_job_function(store_copy, tmp_path):
 
 
 def test_cached_aggregates_follow_the_store(store_copy, tmp_path):
+    from analysis.store import summaries
     from analysis.store.schema import flags, utc_now
 
     app = create_app(store_copy, cache_dir=tmp_path / "c", open_reading=True)
@@ -282,6 +283,7 @@ def test_cached_aggregates_follow_the_store(store_copy, tmp_path):
     with ctx.store.write() as conn:  # a new quality-check flag: the store's fingerprint changes
         conn.execute(flags.insert().values(actuation_id=aid, model_id=None, event=None, statistic="qc:test",
                                            value=1.0, limit_value=0.5, reason="test", created_at=utc_now()))
+        summaries.refresh_for(conn, [aid])  # as every write of the store's own does, in its transaction
     after, _, _ = lots.lots_chart_data(*args, cache=ctx.drill_cache)
     assert after.points["n_flagged"].sum() == first.points["n_flagged"].sum() + 1
 

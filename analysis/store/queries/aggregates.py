@@ -18,12 +18,12 @@ from sqlalchemy import and_, case, func, select
 
 from .. import schema as db
 from ..errors import StoreError
-from ..summaries import sampling_keys
+from ..summaries import sampling_key
 from ..types import Filters, Statistic, statistic
 from ._base import (
     active_model_ids,
-    counted_flag,
     df,
+    is_flagged,
     placed,
     sd_from_moments,
     sd_from_moments_scalar,
@@ -61,7 +61,7 @@ def _summarised(stat: Statistic, value):
 SS, CC, CS = db.stat_summaries, db.cell_counts, db.cloud_sample
 
 #: Values read raw when the selection holds at most this many; from the stratified sample above it.
-HISTOGRAM_VALUES = 10_000
+HISTOGRAM_VALUES = 5_000
 
 
 def _cells(table):
@@ -179,35 +179,37 @@ def lot_points(conn, stat_key: str, event: str, filters: Filters = Filters(), *,
 
 
 def _value_frame(conn, stat: Statistic, event: str, filters: Filters, *, budget: int, n_total: int,
-                 summarised: bool) -> pd.DataFrame:
-    """actuation_id, lot, rig, site, recorded_at, value over the selection: every value when there are at most
-    ``budget``, else the first r of each (profile, lot, rig) stratum of the cloud sample that has actuations in
-    the selection, r chosen so about ``budget`` come back (and, beyond ``budget`` strata, an even share of the
-    strata). The sample's ids are read first and their values looked up by id, so the work does not grow with
-    the store."""
+                 summarised: bool, flagged_budget: int = 0) -> pd.DataFrame:
+    """actuation_id, lot, rig, site, recorded_at, value, flagged over the selection: every value when there are
+    at most ``budget``, else from the cloud sample, of each (profile, lot, rig) stratum with actuations in the
+    selection the first r unflagged ones, r chosen so about ``budget`` come back (beyond ``budget`` strata, an
+    even share of the strata), and the newest ``flagged_budget`` / strata flagged ones. The sample's ids are
+    given as an IN list, so the database walks the sample and looks each value up by id: the work does not grow
+    with the store."""
     base, value = _with_value(conn, stat, event, filters.profile)
     a = db.actuations
     v = _summarised(stat, value) if summarised else value
     cols = [a.c.id.label("actuation_id"), db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"),
             db.sites.c.name.label("site"), a.c.recorded_at, v.label("value")]
     if n_total <= budget:
-        return df(conn, where(select(*cols).select_from(base).where(v.is_not(None)), filters))
+        fl = case((is_flagged(active_model_ids(conn)), True), else_=False).label("flagged")
+        return df(conn, where(select(*cols, fl).select_from(base).where(v.is_not(None)), filters))
     strata = df(conn, _where_cells(select(CC.c.profile, CC.c.lot_id, CC.c.rig_id).select_from(_cells(CC))
                                    .distinct(), CC, filters))
-    r = max(1, budget // max(1, len(strata)))
-    q = select(CS.c.actuation_id, CS.c.profile, CS.c.lot_id, CS.c.rig_id).where(CS.c.rank <= r)
+    n_strata = max(1, len(strata))
+    r = max(1, budget // n_strata)
+    ranks = CS.c.rank.between(1, r)
+    if n_strata > budget:  # more strata than points: an even share of the strata's first ones
+        ranks = and_(ranks, sampling_key(CS.c.actuation_id) < int(2**32 * budget / n_strata))
+    if flagged_budget:
+        ranks = ranks | CS.c.rank.between(-max(1, flagged_budget // n_strata), -1)
+    sample = select(CS.c.actuation_id).where(ranks)
     if filters.profile:
-        q = q.where(CS.c.profile == filters.profile)
-    picked = df(conn, q).merge(strata, on=["profile", "lot_id", "rig_id"])
-    if len(strata) > budget:
-        picked = picked[sampling_keys(picked["actuation_id"]) < 2**32 * budget / len(strata)]
-    ids = sorted(int(i) for i in picked["actuation_id"])
-    parts = [df(conn, where(select(*cols).select_from(base).where(and_(a.c.id.in_(ids[k:k + 900]),
-                                                                        v.is_not(None))), filters))
-             for k in range(0, len(ids), 900)]
-    parts = [p for p in parts if len(p)]
-    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
-        columns=["actuation_id", "lot", "rig", "site", "recorded_at", "value"])
+        sample = sample.where(CS.c.profile == filters.profile)
+    stmt = (select(*cols, (CS.c.rank < 0).label("flagged"))
+            .select_from(base.join(CS, CS.c.actuation_id == a.c.id))
+            .where(and_(a.c.id.in_(sample), v.is_not(None))))
+    return df(conn, where(stmt, filters))
 
 
 def _total(conn, stat, event, filters) -> int:
@@ -216,44 +218,18 @@ def _total(conn, stat, event, filters) -> int:
 
 
 def actuation_cloud(conn, stat_key: str, event: str, filters: Filters = Filters(), *,
-                    max_points: int = 4000, n_total: int | None = None, max_flagged: int = 5000) -> pd.DataFrame:
-    """Single actuations to draw behind the lot points: flagged ones (the newest ``max_flagged`` of them) and
-    about ``max_points`` others, all of them when there are no more, else the stratified sample (every lot and
-    rig alike). ``n_total``: the number of values, when the caller has it already. Columns: actuation_id, lot,
-    rig, site, recorded_at (UTC), value, flagged."""
+                    max_points: int = 4000, n_total: int | None = None, max_flagged: int = 4000) -> pd.DataFrame:
+    """Single actuations to draw behind the lot points: every one when the selection has at most ``max_points``
+    values, else the stratified sample (every lot and rig alike): about ``max_points`` unflagged and about
+    ``max_flagged`` flagged ones (the newest of each lot and rig). ``n_total``: the number of values, when the
+    caller has it already. Columns: actuation_id, lot, rig, site, recorded_at (UTC), value, flagged."""
     stat = statistic(stat_key)
-    a, f = db.actuations, db.flags
     if n_total is None:
         n_total = _total(conn, stat, event, filters)
-    active = active_model_ids(conn)
-    flag_ids: set[int] = set()
-    # Newest first along the flags' index, one model (and the quality-check flags) at a time: stops at the cap.
-    for cond in [f.c.model_id == mid for mid in active] + [f.c.model_id.is_(None)]:
-        q = (select(f.c.actuation_id).select_from(f.join(a, a.c.id == f.c.actuation_id).join(
-            db.rigs, db.rigs.c.id == a.c.rig_id).join(db.sites, db.sites.c.id == a.c.site_id).join(
-            db.lots, db.lots.c.id == a.c.lot_id)).where(cond).distinct()
-             .order_by(f.c.actuation_id.desc()).limit(max_flagged))
-        flag_ids |= set(conn.execute(where(q, filters)).scalars())
-    flag_ids = set(sorted(flag_ids, reverse=True)[:max_flagged])
-    rest = _value_frame(conn, stat, event, filters, budget=max_points, n_total=n_total, summarised=False)
-    base, value = _with_value(conn, stat, event, filters.profile)
-    parts = [rest]
-    ids = sorted(flag_ids - set(rest["actuation_id"]))
-    for i in range(0, len(ids), 900):
-        stmt = (select(a.c.id.label("actuation_id"), db.lots.c.name.label("lot"), db.rigs.c.name.label("rig"),
-                       db.sites.c.name.label("site"), a.c.recorded_at, value.label("value"))
-                .select_from(base).where(and_(a.c.id.in_(ids[i:i + 900]), value.is_not(None))))
-        parts.append(df(conn, stmt))
-    out = pd.concat([p for p in parts if len(p)], ignore_index=True) if any(len(p) for p in parts) else rest
+    out = _value_frame(conn, stat, event, filters, budget=max_points, n_total=n_total, summarised=False,
+                       flagged_budget=max_flagged)
     out = out.sort_values("actuation_id").reset_index(drop=True)
-    # A sampled actuation beyond the flagged cap is still flagged: asked of the flags for these rows alone.
-    sampled_flagged = set()
-    others = sorted(set(out["actuation_id"].astype(int)) - flag_ids)
-    for i in range(0, len(others), 900):
-        sampled_flagged |= set(conn.execute(
-            select(f.c.actuation_id).where(and_(f.c.actuation_id.in_(others[i:i + 900]), counted_flag(active)))
-        ).scalars())
-    out["flagged"] = out["actuation_id"].isin(flag_ids | sampled_flagged).astype(bool)
+    out["flagged"] = out["flagged"].astype(bool)
     out["recorded_at"] = pd.to_datetime(out["recorded_at"])
     return out[["actuation_id", "lot", "rig", "site", "recorded_at", "value", "flagged"]]
 
@@ -306,7 +282,8 @@ def rig_histogram(conn, stat_key: str, event: str, filters: Filters = Filters(),
                   lo: float | None = None, hi: float | None = None, max_values: int = HISTOGRAM_VALUES):
     """Histogram of the statistic per rig: (edges (n_bins + 1,), DataFrame rig, site, bin, count). Log
     statistics are binned on their natural log. Every value when the selection has at most ``max_values``,
-    else the stratified sample (the shape per rig, each lot alike, not the counts). lo, hi: the range when the
+    else the stratified sample of unflagged actuations (the shape per rig, each lot alike, not the counts; the
+    flag rates are in rig_summary). lo, hi: the range when the
     caller knows it (the summaries keep it)."""
     stat = statistic(stat_key)
     n_total = _total(conn, stat, event, filters)

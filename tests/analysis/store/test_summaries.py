@@ -86,26 +86,33 @@ def test_the_check_names_a_changed_row_and_repair_rewrites_it(store_copy):
     assert rc == 0 and "they agree" in out
 
 
-def test_the_sample_is_the_lowest_keys_of_each_stratum(tmp_path):
+def test_the_sample_is_the_lowest_keys_of_each_stratum_and_every_flagged_one(tmp_path):
     url = f"sqlite:///{tmp_path / 's.db'}"
     fill_synthetic_store(url, 6000, n_lots=5)  # 150 actuations per lot and rig: more than a stratum keeps
     with Store.open(url, create=False) as store, store.read() as conn:
         acts = pd.read_sql(text("SELECT id, profile, lot_id, rig_id FROM actuations"), conn)
+        flagged = set(conn.execute(text("SELECT DISTINCT actuation_id FROM flags")).scalars())
         got = pd.read_sql(text("SELECT actuation_id, profile, lot_id, rig_id, rank FROM cloud_sample"), conn)
         assert summaries.differences(conn) == []
     # Knuth's multiplicative hash, computed here in Python integers (from memory: 2654435761, modulo 2^32).
     acts["key"] = [(int(i) * 2654435761) % 2**32 for i in acts["id"]]
+    acts["flagged"] = acts["id"].isin(flagged)
     k = summaries.SAMPLE_PER_STRATUM
     strata = ["profile", "lot_id", "rig_id"]
-    sizes = acts.groupby(strata).size()
-    assert (sizes > k).all()
-    want = acts.sort_values(["key", "id"]).groupby(strata, sort=False).head(k)
-    assert set(got["actuation_id"]) == set(want["id"])
-    assert (got.groupby(strata).size() == k).all()
-    for _, g in got.groupby(strata):
+    plain = acts[~acts["flagged"]]
+    assert (plain.groupby(strata).size() > k).all()
+    want = plain.sort_values(["key", "id"]).groupby(strata, sort=False).head(k)
+    kept = got[got["rank"] > 0]
+    assert set(kept["actuation_id"]) == set(want["id"])
+    for _, g in kept.groupby(strata):
         assert sorted(g["rank"]) == list(range(1, k + 1))
+    # every flagged actuation, ranked -1, -2, ... from the newest within its stratum
+    marked = got[got["rank"] < 0]
+    assert set(marked["actuation_id"]) == flagged
+    for _, g in marked.groupby(strata):
+        assert list(g.sort_values("actuation_id", ascending=False)["rank"]) == list(range(-1, -len(g) - 1, -1))
     # an even sample: the kept ids of a stratum spread over its whole run of ids, not its first ones
-    span = got.groupby(strata)["actuation_id"].agg(["min", "max"])
+    span = kept.groupby(strata)["actuation_id"].agg(["min", "max"])
     whole = acts.groupby(strata)["id"].agg(["min", "max"])
     assert ((span["max"] - span["min"]) > 0.8 * (whole["max"] - whole["min"])).all()
 
@@ -116,17 +123,17 @@ def test_the_cloud_and_histogram_read_the_sample_beyond_their_budget(tmp_path):
     f = Filters(profile="bench")
     with Store.open(url, create=False) as store, store.read() as conn:
         every = queries.actuation_cloud(conn, "t2_ratio", "dose_release", f, max_points=10_000)
-        some = queries.actuation_cloud(conn, "t2_ratio", "dose_release", f, max_points=400)
+        some = queries.actuation_cloud(conn, "t2_ratio", "dose_release", f, max_points=400, max_flagged=80)
         edges, hist = queries.rig_histogram(conn, "t2_ratio", "dose_release", f, n_bins=10, max_values=400)
-        n_flagged = conn.execute(text(
-            "SELECT count(DISTINCT actuation_id) FROM flags f JOIN trajectories t USING (actuation_id) "
-            "WHERE t.event = 'dose_release'")).scalar()
     assert len(every) == 6000
+    assert every["flagged"].sum() > 80
     unflagged = some[~some["flagged"]]
     # 5 lots x 8 rigs = 40 strata share 400 points: 10 each, every stratum present
     assert unflagged.groupby(["lot", "rig"]).size().between(8, 10).all()
     assert unflagged.groupby(["lot", "rig"]).ngroups == 40
-    assert some["flagged"].sum() >= n_flagged * 0.9  # flagged ones come on top of the sample
-    assert set(every.loc[every["flagged"], "actuation_id"]) == set(some.loc[some["flagged"], "actuation_id"])
+    # 80 flagged over 40 strata: the newest 2 of each (the ones flagged in the full cloud)
+    fl = some[some["flagged"]]
+    assert len(fl) <= 80 and fl.groupby(["lot", "rig"]).size().max() <= 2
+    assert set(fl["actuation_id"]) <= set(every.loc[every["flagged"], "actuation_id"])
     # the sample's 400, less its actuations that failed their quality checks (about 1 %: they give no value)
     assert 370 <= hist["count"].sum() <= 400 and len(edges) == 11
