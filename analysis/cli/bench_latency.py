@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -151,6 +152,8 @@ def bench_latency(*, n_recordings: int = 20, watch: str = "auto", settle_s: floa
             except subprocess.TimeoutExpired:
                 worker.kill()
                 worker.wait()
+            passes = [float(m) for m in re.findall(r"^pass: .* in (\d+\.\d) s", err.read_text(errors="replace"),
+                                                   flags=re.MULTILINE)]
     lat_a = np.asarray(lat)
     p50, p95 = (float(np.percentile(lat_a, q)) for q in (50, 95))
     echo(f"worker: {how}")
@@ -160,6 +163,9 @@ def bench_latency(*, n_recordings: int = 20, watch: str = "auto", settle_s: floa
     echo(f"{len(lat)} recordings delivered one at a time ({len(slow)} written in place in chunks over ~1 s): "
          f"min {lat_a.min():.2f} s, max {lat_a.max():.2f} s"
          + (f"; the chunked ones: max {max(slow):.2f} s" if slow else ""))
+    if passes:
+        echo(f"the worker's passes (take, analyse, score, store; {len(passes)}): median {np.median(passes):.1f} s, "
+             f"max {max(passes):.1f} s")
     echo(f"inbox_to_today_p50_s={p50:.2f}")
     echo(f"inbox_to_today_p95_s={p95:.2f}")
     echo(f"goal_p95_s={GOAL_P95_S:g} ({'met' if p95 <= GOAL_P95_S else 'missed'})")
