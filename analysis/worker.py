@@ -23,15 +23,26 @@ from multiprocessing import get_context
 from pathlib import Path
 
 from .errors import AnalysisError
-from .io import AUDIO_SUFFIXES, is_recording, printable_name, sidecar_path
+from .inbox import (
+    DEFAULT_POLL_S,
+    DEFAULT_SETTLE_S,
+    DEFAULT_SIDECAR_WAIT_S,
+    Arrivals,
+    InboxWatcher,
+    find_inbox_files,
+    inbox_states,
+)
+from .io import printable_name, sidecar_path
 
 __all__ = ["IngestSummary", "ingest_paths", "run_worker", "process_files", "find_inbox_files", "content_hash",
-           "make_pool", "jobs_or_cores", "outside_reason", "sweep_temporary", "DEFAULT_CLAIM_TIMEOUT_S"]
+           "make_pool", "jobs_or_cores", "outside_reason", "sweep_temporary", "DEFAULT_CLAIM_TIMEOUT_S",
+           "DEFAULT_SETTLE_S", "DEFAULT_SIDECAR_WAIT_S", "DEFAULT_POLL_S"]
 
 #: A claim older than this is taken to belong to a dead worker (analysis of one recording takes well under 1 s).
 DEFAULT_CLAIM_TIMEOUT_S = 300.0
-#: In polling mode a file younger than this may still be being written: wait for the next poll.
-DEFAULT_SETTLE_S = 2.0
+#: After a file-system event, wait this long before looking, so a burst of events (a file written in chunks, a
+#: recording and then its sidecar) is one look, not many.
+EVENT_GATHER_S = 0.05
 
 
 @dataclass
@@ -72,29 +83,6 @@ def content_hash(path: Path) -> tuple[str, int]:
             h.update(chunk)
             size += len(chunk)
     return h.hexdigest(), size
-
-
-def find_inbox_files(inbox: Path, *, settle_s: float = 0.0) -> list[Path]:
-    """Recordings in the inbox tree (analysis.io.is_recording), by name, and the symbolic links among them (which
-    the worker refuses: it takes in nothing from outside the inbox); files modified in the last ``settle_s``
-    seconds are left for later."""
-    now = time.time()
-    out = []
-    for p in sorted(inbox.rglob("*")):
-        if p.is_symlink():
-            if not p.name.startswith(".") and (p.suffix.lower() in AUDIO_SUFFIXES or p.is_dir()):
-                out.append(p)  # a recording or a folder of them by link: refused later, with its reason, unread
-            continue
-        if not is_recording(p):
-            continue
-        if settle_s > 0:
-            try:
-                if now - p.stat().st_mtime < settle_s:
-                    continue
-            except FileNotFoundError:
-                continue
-        out.append(p)
-    return out
 
 
 def outside_reason(path: Path, root: Path | None) -> str | None:
@@ -652,27 +640,55 @@ def jobs_or_cores(jobs: int | None) -> int:
 
 
 def run_worker(inbox: str | Path, store_url=None, *, once: bool = False, jobs: int | None = None,
-               interval_s: float = 5.0, claim_timeout_s: float = DEFAULT_CLAIM_TIMEOUT_S,
-               settle_s: float | None = None, profile_dirs: Iterable[str | Path] = (), files_dir=None,
-               log: Callable[[str], None] = lambda msg: None, progress: bool | None = None) -> IngestSummary:
-    """Process the inbox: with ``once``, what is there now, then return; else poll every ``interval_s`` seconds
-    until interrupted (KeyboardInterrupt propagates once the recordings already analysed are committed)."""
+               poll_s: float = DEFAULT_POLL_S, watch: str = "auto", claim_timeout_s: float = DEFAULT_CLAIM_TIMEOUT_S,
+               settle_s: float | None = None, sidecar_wait_s: float | None = None,
+               profile_dirs: Iterable[str | Path] = (), files_dir=None, log: Callable[[str], None] = lambda msg: None,
+               progress: bool | None = None, stop: threading.Event | None = None) -> IngestSummary:
+    """Process the inbox: with ``once``, what is there now, then return; else watch it until interrupted
+    (KeyboardInterrupt propagates once the recordings already analysed are committed) or ``stop`` is set.
+
+    A recording is taken once complete (analysis.inbox.Arrivals): its size and mtime and its sidecar's unchanged
+    over ``settle_s`` (default 2 s; 0 with ``once``) and its sidecar there, or ``sidecar_wait_s`` after it was
+    first seen without one (default 60 s; 0 with ``once``), when it is quarantined for the missing sidecar as
+    before. ``watch`` (analysis.inbox.WATCH_MODES): file-system events wake the worker at once ("auto": when the
+    folder delivers them; "events": required); the inbox is scanned every ``poll_s`` seconds in any case.
+    """
+    from . import pipeline, references  # noqa: F401 - imported now (and into the pool), not on a file's clock
     from .store import Store
 
     inbox = Path(inbox)
     if not inbox.is_dir():
         raise AnalysisError(f"{inbox}: inbox folder does not exist")
+    if not poll_s > 0:
+        raise AnalysisError(f"poll interval must be a number of seconds > 0, got {poll_s!r}")
     jobs = jobs_or_cores(jobs)
-    settle = (0.0 if once else DEFAULT_SETTLE_S) if settle_s is None else settle_s
+    settle = (0.0 if once else DEFAULT_SETTLE_S) if settle_s is None else float(settle_s)
+    side_wait = (0.0 if once else DEFAULT_SIDECAR_WAIT_S) if sidecar_wait_s is None else float(sidecar_wait_s)
+    arrivals = Arrivals(settle_s=settle, sidecar_wait_s=side_wait, retry_s=poll_s)
+    watcher = InboxWatcher(inbox, mode="poll" if once else watch, log=log)
     total = IngestSummary()
     worker_id = f"{socket.gethostname()}:{os.getpid()}"
     pool = make_pool(jobs) if jobs > 1 else None
     with Store.open(store_url, files_dir=files_dir) as store:
         _sweep(store, claim_timeout_s, log)
         try:
+            watcher.start()
+            if not once:
+                log(f"watching {inbox} with {watcher.how} and a scan every {poll_s:g} s; a file is taken when it "
+                    f"and its sidecar are unchanged for {settle:g} s (without a sidecar: after {side_wait:g} s)")
+            first = None  # with once: the files there at the start, and no others
             while True:
-                files = find_inbox_files(inbox, settle_s=settle)
+                now = time.monotonic()
+                states = inbox_states(inbox, only=first)
+                arrivals.observe(states, now)
+                if once and first is None:
+                    first = list(states)
+                files = arrivals.ready(now)
                 if files:
+                    if side_wait > 0:
+                        for f in arrivals.without_sidecar(files):
+                            log(f"{printable_name(f.relative_to(inbox).as_posix())}: no sidecar {side_wait:g} s "
+                                "after the recording came; taken without one")
                     s = process_files(store, ((f, f.relative_to(inbox).as_posix()) for f in files), jobs=jobs,
                                       pool=pool, worker_id=worker_id, remove_source=True, inbox_root=inbox,
                                       claim_timeout_s=claim_timeout_s, profile_dirs=profile_dirs, log=log,
@@ -683,9 +699,17 @@ def run_worker(inbox: str | Path, store_url=None, *, once: bool = False, jobs: i
                     total.errors += s.errors
                     if not once:
                         log(f"pass: {s}")
-                if once:
+                if once and arrivals.pending() == 0:
                     return total
-                time.sleep(interval_s)
+                if stop is not None and stop.is_set():
+                    return total
+                due = arrivals.next_due_s(time.monotonic())
+                timeout = poll_s if due is None else min(poll_s, due)
+                if stop is not None:
+                    timeout = min(timeout, 0.5)  # to notice ``stop`` soon
+                if watcher.wait(timeout):
+                    time.sleep(EVENT_GATHER_S)
         finally:
+            watcher.stop()
             if pool is not None:
                 pool.shutdown(cancel_futures=True)

@@ -39,7 +39,7 @@ class AppContext:
     store: Store
     cache_dir: Path
     drill_cache: diskcache.Cache
-    refresh_s: float = 30.0
+    refresh_s: float = 2.0
     meeting: bool = False
     extra: dict = field(default_factory=dict)
 
@@ -63,7 +63,7 @@ def _secret_key(cache_dir: Path, given: str | None) -> str:
     return path.read_text().strip()
 
 
-def create_app(store_url=None, *, cache_dir=None, meeting: bool = False, refresh_s: float = 30.0,
+def create_app(store_url=None, *, cache_dir=None, meeting: bool = False, refresh_s: float = 2.0,
                secret_key: str | None = None, title: str = "Harken", open_reading: bool = False,
                idle_minutes: float = 30.0, trusted_header: str | None = None, trusted_proxies=(),
                secure_cookies: bool = False, files_dir=None) -> Dash:
@@ -71,7 +71,7 @@ def create_app(store_url=None, *, cache_dir=None, meeting: bool = False, refresh
 
     cache_dir: the folder for the background-job cache and the drill-down cache, shared by all server
     processes (default: ``<store>-dashboard-cache`` beside a SQLite store, else in the working folder).
-    meeting: start in meeting mode (large, high-contrast). refresh_s: how often Today refreshes itself.
+    meeting: start in meeting mode (large, high-contrast). refresh_s: how often Today looks for new results (s).
     Sign-in (dashboard.auth): open_reading lets anyone read without signing in (writing always needs a
     signed-in person with the role); idle_minutes ends an idle session; trusted_header (with trusted_proxies,
     the addresses it is accepted from) takes the user name from a reverse proxy; secure_cookies for HTTPS.

@@ -1,10 +1,14 @@
-"""``harken bench analyse|score|ingest|dashboard``: speed as ratios against a floor or a peer timed in the same run.
+"""``harken bench analyse|score|ingest|dashboard|latency``: speed as ratios against a floor or a peer timed in the
+same run, and the one latency with a goal of its own.
 
 Seconds on these machines are noisy; a ratio of two things timed side by side, interleaved, is not. Each bench
-prints its details first and its ratios last, one per line, as ``name=<value>``.
+prints its details first and its ratios last, one per line, as ``name=<value>``. ``latency`` measures what a user
+waits for (a recording from the inbox to Today) and prints its percentiles in seconds against its goal instead.
 """
 
 from __future__ import annotations
+
+from ..inbox import WATCH_MODES
 
 __all__ = ["register"]
 
@@ -39,6 +43,17 @@ def register(sub) -> None:
                    help="fill and time on this PostgreSQL database instead of SQLite files; EVERYTHING IN ITS "
                         "public SCHEMA IS DROPPED (give an empty database made for the bench)")
     b.set_defaults(func=_dashboard)
+    b = bsub.add_parser("latency", help="recordings dropped into a running worker's inbox until Today's query has "
+                                        "them: p50 and p95 in s against the goal")
+    b.add_argument("--recordings", type=int, default=20, help="recordings timed (default 20; one more is "
+                                                                 "delivered first and not counted)")
+    b.add_argument("--watch", choices=WATCH_MODES, default="auto", help="the worker's --watch (default auto)")
+    b.add_argument("--settle-s", type=float, default=None, help="the worker's --settle-s (default: its own)")
+    b.add_argument("--poll-s", type=float, default=None, help="the worker's --poll-s (default: its own)")
+    b.add_argument("--jobs", type=int, default=None, help="the worker's --jobs (default: its own)")
+    b.add_argument("--slow-every", type=int, default=4, help="every Nth recording is written in place in chunks "
+                                                             "(default 4; 0: none)")
+    b.set_defaults(func=_latency)
 
 
 def _analyse(args) -> int:
@@ -66,4 +81,12 @@ def _dashboard(args) -> int:
     from .bench_dashboard import run_bench
 
     run_bench(sizes=(args.small, args.large), repeat=args.repeat, postgres_url=args.postgres)
+    return 0
+
+
+def _latency(args) -> int:
+    from .bench_latency import bench_latency
+
+    bench_latency(n_recordings=args.recordings, watch=args.watch, settle_s=args.settle_s, poll_s=args.poll_s,
+                  jobs=args.jobs, slow_every=args.slow_every)
     return 0

@@ -19,7 +19,8 @@ def register(sub) -> None:
     p.add_argument("--cache-dir", default=None, metavar="DIR",
                    help="cache folder shared by all server processes (default: beside the store)")
     p.add_argument("--meeting", action="store_true", help="start in meeting mode (large, high-contrast)")
-    p.add_argument("--refresh-s", type=float, default=30.0, help="how often Today refreshes itself (s)")
+    p.add_argument("--refresh-s", type=float, default=2.0,
+                   help="how often Today looks for new results, re-rendering only when there are (s, default 2)")
     p.add_argument("--threads", type=int, default=8, help="requests served at once (default 8)")
     p.add_argument("--open-reading", action="store_true",
                    help="let anyone who reaches the port read without signing in (writing always needs a signed-in "
@@ -47,7 +48,7 @@ def network_warning(host: str, port: int, *, open_reading: bool = False) -> str 
             "needs a signed-in person). Use it on a trusted network only.")
 
 
-def serve(store=None, *, host="127.0.0.1", port=8050, cache_dir=None, meeting=False, refresh_s=30.0,
+def serve(store=None, *, host="127.0.0.1", port=8050, cache_dir=None, meeting=False, refresh_s=2.0,
           threads: int = 8, open_reading: bool = False, idle_minutes: float = 30.0, trusted_header=None,
           trusted_proxies=(), secure_cookies: bool = False, files_dir=None, echo=print):
     """Build the dashboard on ``store`` and serve it with waitress (a production WSGI server, pure Python) until

@@ -1,13 +1,19 @@
 """Today: the active signals of units, cells, lots and rigs with their causes and next steps (also when no
 single actuation flagged); the latest recordings of every rig with their state, refreshing by itself; each flag
 in plain words with its suggested cause (recording / rig / lot / unit, from the stored signals), and the
-recordings that could not be analysed."""
+recordings that could not be analysed.
+
+Refreshing by itself: every ``refresh_s`` the page asks the store what changed (queries.today_changes, a few
+index lookups) and re-renders only when that answer did, so a new result shows within seconds without the
+whole view being queried on every tick."""
 
 from __future__ import annotations
 
+import hashlib
 from datetime import UTC, datetime
 
-from dash import Input, Output, dcc, html
+from dash import Input, Output, State, dcc, html
+from dash.exceptions import PreventUpdate
 
 from analysis.store import queries
 from analysis.triage import NEXT_STEP, actuation_state, subject_words, suggest_cause
@@ -30,6 +36,13 @@ PER_RIG_CHOICES = (5, 10, 20, 50)
 MAX_LINES = 3
 #: Signals above the actuation level listed (the widest level first).
 MAX_SIGNALS = 30
+
+
+def changes_key(store) -> str:
+    """A short text that changes whenever what Today shows may have (queries.today_changes)."""
+    with store.read() as conn:
+        stamp = queries.today_changes(conn)
+    return hashlib.sha256(repr(stamp).encode()).hexdigest()[:16]
 
 
 def today_data(store, *, per_rig: int = 10) -> dict:
@@ -101,7 +114,7 @@ def render_signals(sig) -> html.Div:
 
 
 
-def render_today(data: dict) -> html.Div:
+def render_today(data: dict, *, refresh_s: float | None = None) -> html.Div:
     rows, fl, quar, counts = data["rows"], data["flags"], data["quarantine"], data["counts"]
     badges = html.Div(className="state-badges", children=[
         html.Span(f"{counts.get(s, 0)} {s}", className=f"state state-{s.replace(' ', '-')}")
@@ -136,7 +149,9 @@ def render_today(data: dict) -> html.Div:
                               ("received_at", "Received (UTC)", str)], id="today-quarantine") if len(quar) else \
         html.P("No recording was quarantined.", id="today-quarantine")
     return html.Div([
-        card(badges, html.P(f"Updated {datetime.now(UTC).strftime('%H:%M:%S')} UTC.", className="muted")),
+        card(badges, html.P(f"Updated {datetime.now(UTC).strftime('%H:%M:%S')} UTC"
+                            + (f"; looks for new results every {refresh_s:g} s." if refresh_s else "."),
+                            className="muted", id="today-updated")),
         card(html.H2(f"Signals ({counts.get('signals', 0)})"),
              html.P("Units, lots on a rig, lots and rigs that depart from the reference as a whole, even when no "
                     "single actuation flagged.", className="muted"), render_signals(data.get("signals", []))),
@@ -157,6 +172,7 @@ def layout(ctx, q: dict):
             id="today-per-rig", value=per_rig, clearable=False,
             options=[{"label": str(v), "value": str(v)} for v in PER_RIG_CHOICES])], className="filter")),
         dcc.Interval(id="today-interval", interval=int(ctx.refresh_s * 1000)),
+        dcc.Store(id="today-changes"),
         html.Div(id="today-body"),
         review_card("today", reviewable),
         dcc.Store(id="today-url"),
@@ -167,9 +183,19 @@ def register(app, ctx):
     register_url_state(app, NAME, URL_STATE)
     register_review(app, ctx, "today")
 
-    @app.callback(Output("today-body", "children"), Input("today-interval", "n_intervals"),
+    @app.callback(Output("today-changes", "data"), Input("today-interval", "n_intervals"),
+                  State("today-changes", "data"))
+    @guarded("keep")
+    def look(_n, seen):
+        """Every tick: the cheap question; the answer moves on (and Today re-renders) only when it changed."""
+        key = changes_key(ctx.store)
+        if key == seen:
+            raise PreventUpdate  # nothing sent, nothing re-rendered
+        return key
+
+    @app.callback(Output("today-body", "children"), Input("today-changes", "data"),
                   Input("today-per-rig", "value"))
     @guarded("children")
-    def refresh(_n, per_rig):
+    def refresh(_changes, per_rig):
         n = int(pick(str(per_rig), [str(v) for v in PER_RIG_CHOICES], "10"))
-        return render_today(today_data(ctx.store, per_rig=n))
+        return render_today(today_data(ctx.store, per_rig=n), refresh_s=ctx.refresh_s)

@@ -27,13 +27,13 @@ def chromium_binary() -> str | None:
 
 
 @contextlib.contextmanager
-def _serving(store_url, cache_dir):
+def _serving(store_url, cache_dir, *, refresh_s: float = 3600):
     """The dashboard on store_url, served by werkzeug in a thread on a free port; yields its base URL."""
     from werkzeug.serving import make_server
 
     from dashboard import create_app
 
-    app = create_app(store_url, cache_dir=cache_dir, refresh_s=3600, open_reading=True)
+    app = create_app(store_url, cache_dir=cache_dir, refresh_s=refresh_s, open_reading=True)
     srv = make_server("127.0.0.1", 0, app.server, threaded=True)
     thread = threading.Thread(target=srv.serve_forever, daemon=True)
     thread.start()

@@ -4,7 +4,7 @@ through these (and the ``Store`` methods that wrap the common ones); none of the
 
 - records:    schema_version, recordings, quarantine, recent_quarantine, actuations, export_actuations, flags,
               actuation_detail, band_levels, event_levels, trajectory, trajectories, unscored, latest_per_rig,
-              lot_actuations, lot_names, audit_log, check_integrity, kept_files
+              lot_actuations, lot_names, audit_log, check_integrity, kept_files, today_changes
 - models:     models, load_model, active_models, reference_lots, typical_reference_actuation
 - signals:    signals, actuation_causes, units_table, rig_fingerprint
 - aggregates: choices, lot_points, actuation_cloud, rig_summary, reference_summary, rig_histogram,
@@ -44,6 +44,7 @@ from .records import (
     recent_quarantine,
     recordings,
     schema_version,
+    today_changes,
     trajectories,
     trajectory,
     unscored,
@@ -57,5 +58,5 @@ __all__ = [
     "models", "load_model", "active_models", "reference_lots", "typical_reference_actuation", "approvals",
     "choices", "lot_points", "actuation_cloud", "rig_summary", "reference_summary", "rig_histogram",
     "triage_evidence", "flag_summary", "fingerprint", "signals", "actuation_causes", "units_table", "SIGNAL_COLUMNS",
-    "rig_fingerprint", "awaiting_review",
+    "rig_fingerprint", "awaiting_review", "today_changes",
 ]

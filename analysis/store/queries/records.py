@@ -22,7 +22,7 @@ __all__ = [
     "schema_version", "recordings", "quarantine", "recent_quarantine", "actuations", "export_actuations",
     "flags", "actuation_detail", "band_levels", "event_levels", "trajectory", "trajectories", "unscored",
     "latest_per_rig", "lot_actuations", "lot_names", "audit_log", "check_integrity", "EVENT_COLUMNS",
-    "STAT_COLUMNS",
+    "STAT_COLUMNS", "today_changes",
 ]
 
 #: Per-event columns of the export (besides the statistics).
@@ -469,3 +469,18 @@ def check_integrity(conn) -> list[str]:
         else:
             problems.append(f"recording {row.id}: unknown status {row.status!r}")
     return problems
+
+
+def today_changes(conn) -> tuple:
+    """A few index lookups that change whenever what Today shows may have: the store's fingerprint (largest ids,
+    active models, latest verdict), the latest signal, and the number and latest time of the quarantined
+    recordings (a recording is claimed, and has its id, before it is quarantined). A hashable tuple."""
+    from .aggregates import fingerprint
+
+    r = db.recordings
+    quarantined = conn.execute(select(func.count(r.c.id), func.max(r.c.analysed_at))
+                               .where(r.c.status == "quarantined")).one()
+    return fingerprint(conn) + (
+        ("max_signal", conn.execute(select(func.max(db.signals.c.id))).scalar() or 0),
+        ("quarantined", int(quarantined[0]), str(quarantined[1])),
+    )
