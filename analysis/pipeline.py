@@ -208,15 +208,20 @@ def analyse_signals(
     if expected:
         qc.append(_quality.check_markers(len(markers), expected, source=marker_source))
 
-    # Events, in profile order (an event may search relative to an earlier one).
+    # Events, in profile order (an event may search relative to an earlier one). The onset search of each event
+    # looks at its own window only, its flux normalised by the quiet stretch before the recording's first window.
     timings: dict[str, object] = {}
-    onsets = floor = None
-    if mic.size:  # once per recording, shared by every event's search
-        floor = _events.noise_floor_db(mic, sample_rate_hz=fs)
-        if any(spec.detector == "flux" for spec in profile.events):
-            onsets = _events.onset_candidates(mic, sample_rate_hz=fs, log_gamma=ONSET_LOG_GAMMA)
+    floor = _events.noise_floor_db(mic, sample_rate_hz=fs) if mic.size else None  # shared by every event
+    background_s = None
     for spec in profile.events:
-        timings[spec.name] = _find(mic, fs, spec, markers, timings, onsets, floor)
+        window = _window(spec, markers, timings)
+        if isinstance(window, _events.EventTiming):
+            timings[spec.name] = window
+            continue
+        start, stop, marker_s = window
+        if background_s is None and math.isfinite(start):
+            background_s = (start - _events.ONSET_BACKGROUND_S, start)
+        timings[spec.name] = _find(mic, fs, spec, start, stop, marker_s, background_s, floor)
     events = tuple(timings[s.name] for s in profile.events)
 
     found = [ev for ev in events if ev.found]
@@ -283,16 +288,12 @@ def analyse_signals(
     )
 
 
-def _find(mic, fs, spec: EventSpec, markers, timings, onsets, floor_db):
-    """Search window for one event: its marker if present, else its onset window (absolute or after an event)."""
-    max_length = spec.length_s
-    opts = dict(detector=spec.detector, onsets=onsets, log_gamma=ONSET_LOG_GAMMA, floor_db=floor_db)
+def _window(spec: EventSpec, markers, timings):
+    """(start_s, stop_s, marker_s or None) of one event's search window: its marker's if present, else its onset
+    window (absolute or after an earlier event); a missing EventTiming when the earlier event was not found."""
     if spec.find == "marker" and spec.marker is not None and len(markers) >= spec.marker:
         m = markers[spec.marker - 1]
-        return _events.find_event(
-            mic, sample_rate_hz=fs, name=spec.name, search_start_s=m + spec.window_s[0],
-            search_stop_s=m + spec.window_s[1], marker_s=m, max_length_s=max_length, **opts,
-        )
+        return m + spec.window_s[0], m + spec.window_s[1], m
     start, stop = spec.search_s
     if spec.after is not None:
         base = timings.get(spec.after)
@@ -303,9 +304,22 @@ def _find(mic, fs, spec: EventSpec, markers, timings, onsets, floor_db):
                 reason=f"its search window is relative to {spec.after!r}, which was not found",
             )
         start, stop = base.onset_s + start, base.onset_s + stop
+    return start, stop, None
+
+
+def _find(mic, fs, spec: EventSpec, start, stop, marker_s, background_s, floor_db):
+    """One event found in its window; a flux search computes the flux of that window only (window_onsets)."""
+    onsets = None
+    if spec.detector == "flux":
+        onsets = (np.empty(0), np.empty(0))  # an undefined or empty window is reported missing by find_event
+        if mic.size and math.isfinite(start) and math.isfinite(stop) and stop > start:
+            onsets = _events.window_onsets(mic, sample_rate_hz=fs, search_start_s=start, search_stop_s=stop,
+                                           background_start_s=background_s[0], background_stop_s=background_s[1],
+                                           log_gamma=ONSET_LOG_GAMMA)
     return _events.find_event(
-        mic, sample_rate_hz=fs, name=spec.name, search_start_s=start, search_stop_s=stop, marker_s=None,
-        max_length_s=max_length, **opts,
+        mic, sample_rate_hz=fs, name=spec.name, search_start_s=start, search_stop_s=stop, marker_s=marker_s,
+        max_length_s=spec.length_s, detector=spec.detector, onsets=onsets, log_gamma=ONSET_LOG_GAMMA,
+        floor_db=floor_db,
     )
 
 
