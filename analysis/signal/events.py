@@ -27,6 +27,7 @@ from numpy.lib.stride_tricks import sliding_window_view
 
 from analysis.errors import ParameterError
 from analysis.signal._common import LEVEL_FLOOR_DBFS, as_signal, mean_square_db, number, runs
+from analysis.signal.spectra import window_values
 
 __all__ = [
     "EventTiming",
@@ -171,7 +172,7 @@ def _flux(x: np.ndarray, fs: float, n_frame: int, hop: int, gamma: float | None,
     if x.size < n_frame:
         return np.empty(0), np.empty(0)
     frames = sliding_window_view(x, n_frame)[::hop]
-    window = scipy.signal.get_window("hann", n_frame).astype(dtype)  # periodic Hann
+    window = window_values("hann", n_frame).astype(dtype, copy=False)  # periodic Hann
     spec = scipy.fft.rfft(frames.astype(dtype, copy=False) * window, axis=1)
     mag = np.abs(spec)
     if gamma is not None:
