@@ -92,6 +92,23 @@ def _samples(name: str, seconds: float, fs: float, *, minimum: int) -> int:
 
 # ---------------------------------------------------------------- markers
 
+def _median_filtered(m: np.ndarray) -> np.ndarray:
+    """scipy.ndimage.median_filter(m, size=5, mode="nearest"), computed only where the 5 samples are not all equal.
+
+    A marker channel is mostly flat: away from its edges every window holds one value, which is its own median."""
+    half = _MARKER_MEDIAN_SAMPLES // 2
+    change = np.flatnonzero(m[1:] != m[:-1])  # between sample j and j + 1
+    if m.size <= _MARKER_MEDIAN_SAMPLES or change.size > m.size // 16:  # a noisy channel: filter all of it
+        return scipy.ndimage.median_filter(m, size=_MARKER_MEDIAN_SAMPLES, mode="nearest")
+    # The window around i holds a change j in [i - half, i + half - 1], i.e. i in [j - half + 1, j + half].
+    where = np.unique((change[:, None] + np.arange(1 - half, half + 1)).ravel())
+    where = where[(where >= 0) & (where < m.size)]
+    windows = m[np.clip(where[:, None] + np.arange(-half, half + 1), 0, m.size - 1)]  # "nearest" at the ends
+    y = m.copy()
+    y[where] = np.sort(windows, axis=1)[:, half]
+    return y
+
+
 def marker_edges(marker, *, sample_rate_hz: float, threshold: float | None = None,
                  min_gap_s: float = 0.005) -> np.ndarray:
     """Rising-edge times (s) of a pulse (marker) channel, float64 shape (n_edges,).
@@ -115,24 +132,32 @@ def marker_edges(marker, *, sample_rate_hz: float, threshold: float | None = Non
         return np.empty(0)
     if not finite.all():
         m = np.where(finite, m, np.median(m[finite]))
-    y = scipy.ndimage.median_filter(m, size=_MARKER_MEDIAN_SAMPLES, mode="nearest")
+    y = _median_filtered(m)
 
     if threshold is None:
         lo, hi = float(y.min()), float(y.max())
         if not hi > lo:
             return np.empty(0)
         t = 0.5 * (lo + hi)
+        n_high = -1
         for _ in range(50):  # iterations, not samples: converges in a few steps
             high = y >= t
+            count = int(np.count_nonzero(high))
+            if count in (0, y.size):
+                return np.empty(0)
+            if count == n_high:  # thresholds split nested sets: the same classes as the last step, same medians
+                break
+            n_high = count
             low_level, high_level = float(np.median(y[~high])), float(np.median(y[high]))
             t_new = 0.5 * (low_level + high_level)
             if t_new == t:
                 break
             t = t_new
-        high = y >= t
-        if not high.any() or high.all():
-            return np.empty(0)
-        low_level, high_level = float(np.median(y[~high])), float(np.median(y[high]))
+        else:  # no convergence: the classes of the last threshold
+            high = y >= t
+            if not high.any() or high.all():
+                return np.empty(0)
+            low_level, high_level = float(np.median(y[~high])), float(np.median(y[high]))
         spread = 1.4826 * float(np.median(np.abs(y - np.where(high, high_level, low_level))))
         if not high_level - low_level > _MIN_LEVEL_SEPARATION * spread:
             return np.empty(0)

@@ -63,6 +63,28 @@ def test_marker_edges_debounce_and_spikes():
     np.testing.assert_array_equal(edges, np.array([5000, 30000]) / FS)
 
 
+@pytest.mark.parametrize("kind", ["clean", "spikes", "edges at the ends", "noisy", "short"])
+def test_marker_median_filter_is_scipys_where_it_skips_flat_stretches(kind):
+    # Reference: scipy.ndimage.median_filter(size=5, mode="nearest") over the whole channel.
+    import scipy.ndimage
+
+    from analysis.signal.events import _median_filtered
+
+    rng = np.random.default_rng(2)
+    m = _pulse_train([1000, 5000, 5003], 400, 20_000, high=0.8)
+    if kind == "spikes":
+        m[rng.integers(0, m.size, 30)] = rng.uniform(-1, 1, 30)
+        m[7000:7002] = 0.8  # a two-sample blip
+    elif kind == "edges at the ends":
+        m[:3] = 0.8
+        m[-2:] = 0.5
+    elif kind == "noisy":
+        m = m + rng.normal(0, 0.01, m.size)
+    elif kind == "short":
+        m = np.array([0.0, 1.0, 0.0, 1.0])
+    np.testing.assert_array_equal(_median_filtered(m), scipy.ndimage.median_filter(m, size=5, mode="nearest"))
+
+
 def test_marker_edges_with_a_given_threshold():
     m = _pulse_train([1000, 9000], 200, 20000, low=0.0, high=1.0)
     m[1000:1005] = 0.3  # slow first rise: above 0.25 from sample 1000, above 0.5 only from 1005
