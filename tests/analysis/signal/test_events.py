@@ -85,6 +85,19 @@ def test_marker_median_filter_is_scipys_where_it_skips_flat_stretches(kind):
     np.testing.assert_array_equal(_median_filtered(m), scipy.ndimage.median_filter(m, size=5, mode="nearest"))
 
 
+@pytest.mark.parametrize("n", [7, 8, 101, 1000])
+def test_marker_level_median_is_numpys(n):
+    # Reference: np.median, for every share of samples at the likely value, below, at and past half.
+    from analysis.signal.events import _median
+
+    rng = np.random.default_rng(n)
+    for k in range(n + 1):
+        for others in ((-1.0, 1.0), (-1.0, 0.0), (0.5, 1.0)):  # the likely value amid, above or below the rest
+            a = rng.uniform(*others, n)
+            a[rng.permutation(n)[:k]] = 0.25
+            assert _median(a, 0.25) == np.median(a), (n, k, others)
+
+
 def test_marker_edges_with_a_given_threshold():
     m = _pulse_train([1000, 9000], 200, 20000, low=0.0, high=1.0)
     m[1000:1005] = 0.3  # slow first rise: above 0.25 from sample 1000, above 0.5 only from 1005
