@@ -211,7 +211,10 @@ def analyse_signals(
     # Events, in profile order (an event may search relative to an earlier one). The onset search of each event
     # looks at its own window only, its flux normalised by the quiet stretch before the recording's first window.
     timings: dict[str, object] = {}
-    floor = _events.noise_floor_db(mic, sample_rate_hz=fs) if mic.size else None  # shared by every event
+    # Everything after the quality checks works in float64: converted once here rather than by each step (the same
+    # numbers; the onset flux keeps the recording's own precision, see _find).
+    mic64 = mic.astype(np.float64) if mic.dtype != np.float64 else mic
+    floor = _events.noise_floor_db(mic64, sample_rate_hz=fs) if mic.size else None  # shared by every event
     background_s = None
     for spec in profile.events:
         window = _window(spec, markers, timings)
@@ -221,7 +224,7 @@ def analyse_signals(
         start, stop, marker_s = window
         if background_s is None and math.isfinite(start):
             background_s = (start - _events.ONSET_BACKGROUND_S, start)
-        timings[spec.name] = _find(mic, fs, spec, start, stop, marker_s, background_s, floor)
+        timings[spec.name] = _find(mic, mic64, fs, spec, start, stop, marker_s, background_s, floor)
     events = tuple(timings[s.name] for s in profile.events)
 
     found = [ev for ev in events if ev.found]
@@ -230,12 +233,12 @@ def analyse_signals(
         first = min(ev.onset_s for ev in found)
         qc.append(
             _quality.check_snr(
-                mic, sample_rate_hz=fs, first_event_s=first, background_max_s=q.background_max_s,
+                mic64, sample_rate_hz=fs, first_event_s=first, background_max_s=q.background_max_s,
                 min_snr_db=q.min_snr_db,
             )
         )
         # the rig's fingerprint: the same quiet stretch, in bands
-        background = _background.background_levels(mic, sample_rate_hz=fs, first_event_s=first,
+        background = _background.background_levels(mic64, sample_rate_hz=fs, first_event_s=first,
                                                    background_max_s=q.background_max_s,
                                                    fmax_hz=profile.bands.fmax_hz)
     else:
@@ -252,7 +255,7 @@ def analyse_signals(
                 notes.append(f"{spec.name}: no band features, fmax {spec.bands.fmax_hz:g} Hz >= Nyquist {fs / 2:g} Hz")
                 continue
             features[spec.name] = _features.event_features(
-                mic,
+                mic64,
                 sample_rate_hz=fs,
                 onset_s=ev.onset_s,
                 length_s=spec.length_s,
@@ -265,7 +268,7 @@ def analyse_signals(
             )
             if spec.resonances_hz:
                 found_res = _resonance.resonances(
-                    mic, sample_rate_hz=fs, onset_s=ev.onset_s, length_s=spec.length_s,
+                    mic64, sample_rate_hz=fs, onset_s=ev.onset_s, length_s=spec.length_s,
                     slice_window_s=spec.slice_window_s, slice_hop_s=spec.slice_hop_s, ranges_hz=spec.resonances_hz)
                 features[spec.name] = replace(features[spec.name], resonances=found_res)
 
@@ -307,8 +310,9 @@ def _window(spec: EventSpec, markers, timings):
     return start, stop, None
 
 
-def _find(mic, fs, spec: EventSpec, start, stop, marker_s, background_s, floor_db):
-    """One event found in its window; a flux search computes the flux of that window only (window_onsets)."""
+def _find(mic, mic64, fs, spec: EventSpec, start, stop, marker_s, background_s, floor_db):
+    """One event found in its window; a flux search computes the flux of that window only (window_onsets), in
+    the precision of the recording (mic); the rest works on mic64, the same samples in float64."""
     onsets = None
     if spec.detector == "flux":
         onsets = (np.empty(0), np.empty(0))  # an undefined or empty window is reported missing by find_event
@@ -317,7 +321,7 @@ def _find(mic, fs, spec: EventSpec, start, stop, marker_s, background_s, floor_d
                                            background_start_s=background_s[0], background_stop_s=background_s[1],
                                            log_gamma=ONSET_LOG_GAMMA)
     return _events.find_event(
-        mic, sample_rate_hz=fs, name=spec.name, search_start_s=start, search_stop_s=stop, marker_s=marker_s,
+        mic64, sample_rate_hz=fs, name=spec.name, search_start_s=start, search_stop_s=stop, marker_s=marker_s,
         max_length_s=spec.length_s, detector=spec.detector, onsets=onsets, log_gamma=ONSET_LOG_GAMMA,
         floor_db=floor_db,
     )
