@@ -24,8 +24,8 @@ from .signal import features as _features
 from .signal import quality as _quality
 from .signal import resonance as _resonance
 
-__all__ = ["RecordingResult", "analyse_signals", "analyse_file", "band_layout", "markers_for", "json_number",
-           "ONSET_LOG_GAMMA"]
+__all__ = ["RecordingResult", "analyse_signals", "analyse_file", "band_layout", "markers_for", "search_window",
+           "json_number", "ONSET_LOG_GAMMA"]
 
 #: Spectral flux on log(1 + γ|X|) magnitudes (full-scale units): a sound's rise counts by its ratio over what was
 #: before, not by its absolute size, so a click is not drowned by the flux of loud airflow noise elsewhere in the
@@ -217,7 +217,7 @@ def analyse_signals(
     floor = _events.noise_floor_db(mic64, sample_rate_hz=fs) if mic.size else None  # shared by every event
     background_s = None
     for spec in profile.events:
-        window = _window(spec, markers, timings)
+        window = search_window(spec, markers, timings)
         if isinstance(window, _events.EventTiming):
             timings[spec.name] = window
             continue
@@ -291,9 +291,10 @@ def analyse_signals(
     )
 
 
-def _window(spec: EventSpec, markers, timings):
+def search_window(spec: EventSpec, markers, timings):
     """(start_s, stop_s, marker_s or None) of one event's search window: its marker's if present, else its onset
-    window (absolute or after an earlier event); a missing EventTiming when the earlier event was not found."""
+    window (absolute or after an earlier event, from timings: name -> EventTiming); a missing EventTiming when the
+    earlier event was not found."""
     if spec.find == "marker" and spec.marker is not None and len(markers) >= spec.marker:
         m = markers[spec.marker - 1]
         return m + spec.window_s[0], m + spec.window_s[1], m

@@ -40,6 +40,7 @@ __all__ = [
     "find_event",
     "onset_candidates",
     "window_onsets",
+    "window_search_frames",
     "ONSET_BACKGROUND_S",
     "DETECTORS",
 ]
@@ -435,6 +436,45 @@ def _flux_frames(x: np.ndarray, first: int, stop: int, n_frame: int, hop: int, g
     return _flux(seg, 1.0, n_frame, hop, gamma, dtype)[1][lead:]
 
 
+def _window_plan(n_samples, fs, lo_s, hi_s, b0_s, b1_s, n_frame, hop, med, gap):
+    """Frame ranges [start, stop) of a windowed onset search: (core, span, background), or None when the window
+    holds no frame. core: the frames whose peaks can put an onset in the window; span: core with the context
+    the threshold and the min-gap rule need; background: the frames wholly inside the background stretch."""
+    n_total = (n_samples - n_frame) // hop + 1 if n_samples >= n_frame else 0
+    if n_total < 3 or not hi_s > lo_s:
+        return None
+    # A peak at frame p puts its onset in [p·hop - N, p·hop + 2N) (see _picked).
+    core0 = max(0, math.floor((lo_s * fs - 2 * n_frame) / hop))
+    core1 = min(n_total, math.floor((hi_s * fs + n_frame) / hop) + 1)
+    if core1 <= core0:
+        return None
+    context = med + 2 * max(1, gap) + 1
+    span0, span1 = max(0, core0 - context), min(n_total, core1 + context)
+    bg0 = max(0, math.ceil(round(b0_s * fs) / hop))
+    bg1 = min(n_total, math.floor((round(b1_s * fs) - n_frame) / hop) + 1)
+    return core0, core1, span0, span1, bg0, bg1
+
+
+def window_search_frames(*, n_samples: int, sample_rate_hz: float, search_start_s: float, search_stop_s: float,
+                         background_start_s: float, background_stop_s: float, frame_s: float = ONSET_FRAME_S,
+                         hop_s: float = ONSET_HOP_S, median_s: float = 0.05,
+                         min_gap_s: float = 0.02) -> np.ndarray:
+    """Start samples of the frames whose spectra window_onsets computes for this window and stretch (each
+    flux frame and the one before it), ascending, int64; for a benchmark's floor of the same work."""
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    n_frame, hop, _, _, med, gap, _ = _onset_options(fs, frame_s, hop_s, 0.0, 1.0, median_s, min_gap_s, None)
+    plan = _window_plan(int(n_samples), fs, float(search_start_s), float(search_stop_s), float(background_start_s),
+                        float(background_stop_s), n_frame, hop, med, gap)
+    if plan is None:
+        return np.empty(0, dtype=np.int64)
+    _, _, span0, span1, bg0, bg1 = plan
+    pieces = [(span0, span1)]
+    if bg1 - bg0 >= _MIN_BACKGROUND_FRAMES:
+        pieces = [(bg0, bg1), (span0, span1)] if bg1 < span0 or bg0 > span1 else [(min(span0, bg0), max(span1, bg1))]
+    frames = np.concatenate([np.arange(max(0, a - 1), b) for a, b in pieces])
+    return np.unique(frames).astype(np.int64) * hop
+
+
 def window_onsets(x, *, sample_rate_hz: float, search_start_s: float, search_stop_s: float,
                   background_start_s: float, background_stop_s: float, frame_s: float = ONSET_FRAME_S,
                   hop_s: float = ONSET_HOP_S, delta: float = 6.0, lambda_: float = 1.0, median_s: float = 0.05,
@@ -460,18 +500,10 @@ def window_onsets(x, *, sample_rate_hz: float, search_start_s: float, search_sto
     lo_s, hi_s = number("search_start_s", search_start_s), number("search_stop_s", search_stop_s)
     b0_s, b1_s = number("background_start_s", background_start_s), number("background_stop_s", background_stop_s)
     empty = np.empty(0), np.empty(0)
-    n_total = (x.size - n_frame) // hop + 1 if x.size >= n_frame else 0
-    if n_total < 3 or not hi_s > lo_s:
+    plan = _window_plan(x.size, fs, lo_s, hi_s, b0_s, b1_s, n_frame, hop, med, gap)
+    if plan is None:
         return empty
-    # A peak at frame p puts its onset in [p·hop - N, p·hop + 2N) (see _picked).
-    core0 = max(0, math.floor((lo_s * fs - 2 * n_frame) / hop))
-    core1 = min(n_total, math.floor((hi_s * fs + n_frame) / hop) + 1)
-    if core1 <= core0:
-        return empty
-    context = med + 2 * max(1, gap) + 1
-    span0, span1 = max(0, core0 - context), min(n_total, core1 + context)
-    bg0 = max(0, math.ceil(round(b0_s * fs) / hop))
-    bg1 = min(n_total, math.floor((round(b1_s * fs) - n_frame) / hop) + 1)
+    core0, core1, span0, span1, bg0, bg1 = plan
     if bg1 - bg0 < _MIN_BACKGROUND_FRAMES:  # no usable stretch: normalise over the window's own frames
         flux = _flux_frames(x, span0, span1, n_frame, hop, gamma, dtype)
         background = flux

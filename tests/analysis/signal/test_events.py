@@ -441,3 +441,27 @@ def test_window_onsets_name_a_bad_window():
     with pytest.raises(ParameterError, match=r"search_start_s must be a finite number; got nan"):
         window_onsets(np.zeros(4800), sample_rate_hz=FS, search_start_s=math.nan, search_stop_s=0.1,
                       background_start_s=0.0, background_stop_s=0.05)
+
+
+def test_window_onsets_read_only_the_frames_window_search_frames_lists():
+    # Samples outside those frames (loud noise written over them) change nothing: the search computes the flux
+    # of the listed frames only, and the benchmark's floor counts exactly them.
+    from analysis.signal.events import window_onsets, window_search_frames
+
+    x = _click_after_two_noise_levels()
+    opts = dict(sample_rate_hz=FS, search_start_s=0.58, search_stop_s=0.62, background_start_s=0.1,
+                background_stop_s=0.2)
+    starts = window_search_frames(n_samples=x.size, **opts)
+    n = int(0.005 * FS)
+    used = np.zeros(x.size, dtype=bool)
+    for s in starts:
+        used[s:s + n] = True
+    assert 0.05 < used.mean() < 0.5  # a fraction of the recording: the stretch and the window with its context
+    y = np.where(used, x, np.random.default_rng(5).standard_normal(x.size))
+    a, b = window_onsets(x, log_gamma=1000.0, **opts), window_onsets(y, log_gamma=1000.0, **opts)
+    assert a[0].size == 1
+    np.testing.assert_array_equal(a[0], b[0])
+    np.testing.assert_array_equal(a[1], b[1])
+    # without a usable stretch only the window's own frames are read
+    near = window_search_frames(n_samples=x.size, **{**opts, "background_start_s": -0.2, "background_stop_s": 0.0})
+    assert near.min() > 0.3 * FS and set(near) < set(starts)
