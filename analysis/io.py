@@ -351,6 +351,8 @@ def read_sidecar(path) -> Sidecar:
 def _bad_character(value: str, *, allow: str = "") -> str | None:
     """Why ``value`` is not acceptable text (a lone surrogate, which is no Unicode character, or a control or
     format character other than those in ``allow``), or None."""
+    if value.isprintable():  # no control, format or surrogate character: the usual case, without the loop
+        return None
     for i, c in enumerate(value):
         cp = ord(c)
         if 0xD800 <= cp <= 0xDFFF:

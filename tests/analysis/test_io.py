@@ -367,3 +367,19 @@ def test_every_format_taken_from_folders_passes_the_header_check(tmp_path, fmt, 
     sf.write(str(path), x[:, None], FS, format=fmt, subtype=subtype)
     audio = read_audio(path)
     assert audio.samples.shape == (FS // 10, 1) and audio.sample_rate_hz == FS
+
+
+def test_the_printable_shortcut_of_the_sidecar_text_check_lets_nothing_through():
+    # The check skips its per-character loop for text str.isprintable() accepts; no printable code point may be a
+    # control (Cc), format (Cf) or surrogate (Cs) character, or the shortcut would pass what the loop rejects.
+    import sys
+    import unicodedata
+
+    from analysis.io import _bad_character
+
+    leaks = [cp for cp in range(sys.maxunicode + 1)
+             if chr(cp).isprintable() and unicodedata.category(chr(cp)) in ("Cc", "Cf", "Cs")]
+    assert leaks == []
+    assert _bad_character("L2601-01") is None and _bad_character("Zoë Ng") is None
+    assert _bad_character("a\u200bb") == "holds the invisible formatting character U+200B at character 1"
+    assert _bad_character("a\tb", allow="\t\n") is None and _bad_character("a\tb") is not None
