@@ -24,8 +24,8 @@ from .signal import features as _features
 from .signal import quality as _quality
 from .signal import resonance as _resonance
 
-__all__ = ["RecordingResult", "analyse_signals", "analyse_file", "band_layout", "markers_for", "json_number",
-           "ONSET_LOG_GAMMA"]
+__all__ = ["RecordingResult", "analyse_signals", "analyse_file", "band_layout", "markers_for", "search_window",
+           "json_number", "ONSET_LOG_GAMMA"]
 
 #: Spectral flux on log(1 + γ|X|) magnitudes (full-scale units): a sound's rise counts by its ratio over what was
 #: before, not by its absolute size, so a click is not drowned by the flux of loud airflow noise elsewhere in the
@@ -208,15 +208,23 @@ def analyse_signals(
     if expected:
         qc.append(_quality.check_markers(len(markers), expected, source=marker_source))
 
-    # Events, in profile order (an event may search relative to an earlier one).
+    # Events, in profile order (an event may search relative to an earlier one). The onset search of each event
+    # looks at its own window only, its flux normalised by the quiet stretch before the recording's first window.
     timings: dict[str, object] = {}
-    onsets = floor = None
-    if mic.size:  # once per recording, shared by every event's search
-        floor = _events.noise_floor_db(mic, sample_rate_hz=fs)
-        if any(spec.detector == "flux" for spec in profile.events):
-            onsets = _events.onset_candidates(mic, sample_rate_hz=fs, log_gamma=ONSET_LOG_GAMMA)
+    # Everything after the quality checks works in float64: converted once here rather than by each step (the same
+    # numbers; the onset flux keeps the recording's own precision, see _find).
+    mic64 = mic.astype(np.float64) if mic.dtype != np.float64 else mic
+    floor = _events.noise_floor_db(mic64, sample_rate_hz=fs) if mic.size else None  # shared by every event
+    background_s = None
     for spec in profile.events:
-        timings[spec.name] = _find(mic, fs, spec, markers, timings, onsets, floor)
+        window = search_window(spec, markers, timings)
+        if isinstance(window, _events.EventTiming):
+            timings[spec.name] = window
+            continue
+        start, stop, marker_s = window
+        if background_s is None and math.isfinite(start):
+            background_s = (start - _events.ONSET_BACKGROUND_S, start)
+        timings[spec.name] = _find(mic, mic64, fs, spec, start, stop, marker_s, background_s, floor)
     events = tuple(timings[s.name] for s in profile.events)
 
     found = [ev for ev in events if ev.found]
@@ -225,12 +233,12 @@ def analyse_signals(
         first = min(ev.onset_s for ev in found)
         qc.append(
             _quality.check_snr(
-                mic, sample_rate_hz=fs, first_event_s=first, background_max_s=q.background_max_s,
+                mic64, sample_rate_hz=fs, first_event_s=first, background_max_s=q.background_max_s,
                 min_snr_db=q.min_snr_db,
             )
         )
         # the rig's fingerprint: the same quiet stretch, in bands
-        background = _background.background_levels(mic, sample_rate_hz=fs, first_event_s=first,
+        background = _background.background_levels(mic64, sample_rate_hz=fs, first_event_s=first,
                                                    background_max_s=q.background_max_s,
                                                    fmax_hz=profile.bands.fmax_hz)
     else:
@@ -247,7 +255,7 @@ def analyse_signals(
                 notes.append(f"{spec.name}: no band features, fmax {spec.bands.fmax_hz:g} Hz >= Nyquist {fs / 2:g} Hz")
                 continue
             features[spec.name] = _features.event_features(
-                mic,
+                mic64,
                 sample_rate_hz=fs,
                 onset_s=ev.onset_s,
                 length_s=spec.length_s,
@@ -260,7 +268,7 @@ def analyse_signals(
             )
             if spec.resonances_hz:
                 found_res = _resonance.resonances(
-                    mic, sample_rate_hz=fs, onset_s=ev.onset_s, length_s=spec.length_s,
+                    mic64, sample_rate_hz=fs, onset_s=ev.onset_s, length_s=spec.length_s,
                     slice_window_s=spec.slice_window_s, slice_hop_s=spec.slice_hop_s, ranges_hz=spec.resonances_hz)
                 features[spec.name] = replace(features[spec.name], resonances=found_res)
 
@@ -283,16 +291,13 @@ def analyse_signals(
     )
 
 
-def _find(mic, fs, spec: EventSpec, markers, timings, onsets, floor_db):
-    """Search window for one event: its marker if present, else its onset window (absolute or after an event)."""
-    max_length = spec.length_s
-    opts = dict(detector=spec.detector, onsets=onsets, log_gamma=ONSET_LOG_GAMMA, floor_db=floor_db)
+def search_window(spec: EventSpec, markers, timings):
+    """(start_s, stop_s, marker_s or None) of one event's search window: its marker's if present, else its onset
+    window (absolute or after an earlier event, from timings: name -> EventTiming); a missing EventTiming when the
+    earlier event was not found."""
     if spec.find == "marker" and spec.marker is not None and len(markers) >= spec.marker:
         m = markers[spec.marker - 1]
-        return _events.find_event(
-            mic, sample_rate_hz=fs, name=spec.name, search_start_s=m + spec.window_s[0],
-            search_stop_s=m + spec.window_s[1], marker_s=m, max_length_s=max_length, **opts,
-        )
+        return m + spec.window_s[0], m + spec.window_s[1], m
     start, stop = spec.search_s
     if spec.after is not None:
         base = timings.get(spec.after)
@@ -303,9 +308,23 @@ def _find(mic, fs, spec: EventSpec, markers, timings, onsets, floor_db):
                 reason=f"its search window is relative to {spec.after!r}, which was not found",
             )
         start, stop = base.onset_s + start, base.onset_s + stop
+    return start, stop, None
+
+
+def _find(mic, mic64, fs, spec: EventSpec, start, stop, marker_s, background_s, floor_db):
+    """One event found in its window; a flux search computes the flux of that window only (window_onsets), in
+    the precision of the recording (mic); the rest works on mic64, the same samples in float64."""
+    onsets = None
+    if spec.detector == "flux":
+        onsets = (np.empty(0), np.empty(0))  # an undefined or empty window is reported missing by find_event
+        if mic.size and math.isfinite(start) and math.isfinite(stop) and stop > start:
+            onsets = _events.window_onsets(mic, sample_rate_hz=fs, search_start_s=start, search_stop_s=stop,
+                                           background_start_s=background_s[0], background_stop_s=background_s[1],
+                                           log_gamma=ONSET_LOG_GAMMA)
     return _events.find_event(
-        mic, sample_rate_hz=fs, name=spec.name, search_start_s=start, search_stop_s=stop, marker_s=None,
-        max_length_s=max_length, **opts,
+        mic64, sample_rate_hz=fs, name=spec.name, search_start_s=start, search_stop_s=stop, marker_s=marker_s,
+        max_length_s=spec.length_s, detector=spec.detector, onsets=onsets, log_gamma=ONSET_LOG_GAMMA,
+        floor_db=floor_db,
     )
 
 

@@ -5,8 +5,10 @@ audio reader rejects before this point) are treated as silence (0) so that nothi
 
 Onsets: spectral flux SF(n) = Σ_k H(|X_k(n)| - |X_k(n-1)|), H(x) = (x + |x|)/2, peaks picked above an adaptive
 threshold δ + λ·median over ±M frames (Bello et al. 2005, IEEE Trans. Speech Audio Process. 13(5); Dixon 2006,
-Proc. DAFx). Each flux peak is then placed on the sample where the signal changes, by the AIC change-point picker
-(Maeda 1985, Zisin 38; Akaike 1974), so the reported onset is the start of the rise rather than a frame time.
+Proc. DAFx). The search may cover the whole recording (onset_candidates) or one search window, normalised by a
+stated background stretch (window_onsets). Each flux peak is then placed on the sample where the signal changes,
+by the AIC change-point picker (Maeda 1985, Zisin 38; Akaike 1974), so the reported onset is the start of the rise
+rather than a frame time.
 
 Event end: energy hysteresis on frame levels (start at noise floor + 10 dB, end when the level falls below
 floor + 6 dB and stays there; noise floor = 10th percentile of frame levels). Common practice, no source.
@@ -25,6 +27,7 @@ from numpy.lib.stride_tricks import sliding_window_view
 
 from analysis.errors import ParameterError
 from analysis.signal._common import LEVEL_FLOOR_DBFS, as_signal, mean_square_db, number, runs
+from analysis.signal.spectra import window_values
 
 __all__ = [
     "EventTiming",
@@ -36,6 +39,9 @@ __all__ = [
     "event_end",
     "find_event",
     "onset_candidates",
+    "window_onsets",
+    "window_search_frames",
+    "ONSET_BACKGROUND_S",
     "DETECTORS",
 ]
 
@@ -87,6 +93,32 @@ def _samples(name: str, seconds: float, fs: float, *, minimum: int) -> int:
 
 # ---------------------------------------------------------------- markers
 
+def _median_filtered(m: np.ndarray) -> np.ndarray:
+    """scipy.ndimage.median_filter(m, size=5, mode="nearest"), computed only where the 5 samples are not all equal.
+
+    A marker channel is mostly flat: away from its edges every window holds one value, which is its own median."""
+    half = _MARKER_MEDIAN_SAMPLES // 2
+    change = np.flatnonzero(m[1:] != m[:-1])  # between sample j and j + 1
+    if m.size <= _MARKER_MEDIAN_SAMPLES or change.size > m.size // 16:  # a noisy channel: filter all of it
+        return scipy.ndimage.median_filter(m, size=_MARKER_MEDIAN_SAMPLES, mode="nearest")
+    # The window around i holds a change j in [i - half, i + half - 1], i.e. i in [j - half + 1, j + half].
+    where = np.unique((change[:, None] + np.arange(1 - half, half + 1)).ravel())
+    where = where[(where >= 0) & (where < m.size)]
+    windows = m[np.clip(where[:, None] + np.arange(-half, half + 1), 0, m.size - 1)]  # "nearest" at the ends
+    y = m.copy()
+    y[where] = np.sort(windows, axis=1)[:, half]
+    return y
+
+
+def _median(a: np.ndarray, likely: float) -> float:
+    """np.median(a), without its sort when at least half of a (and two more) equals likely: a block of equal
+    values that long covers the middle of the sorted array, so likely is the median. A clean marker channel sits
+    on its two levels, and its deviations from them are mostly 0."""
+    if np.count_nonzero(a == likely) >= a.size // 2 + 2:
+        return float(likely)
+    return float(np.median(a))
+
+
 def marker_edges(marker, *, sample_rate_hz: float, threshold: float | None = None,
                  min_gap_s: float = 0.005) -> np.ndarray:
     """Rising-edge times (s) of a pulse (marker) channel, float64 shape (n_edges,).
@@ -110,25 +142,33 @@ def marker_edges(marker, *, sample_rate_hz: float, threshold: float | None = Non
         return np.empty(0)
     if not finite.all():
         m = np.where(finite, m, np.median(m[finite]))
-    y = scipy.ndimage.median_filter(m, size=_MARKER_MEDIAN_SAMPLES, mode="nearest")
+    y = _median_filtered(m)
 
     if threshold is None:
         lo, hi = float(y.min()), float(y.max())
         if not hi > lo:
             return np.empty(0)
         t = 0.5 * (lo + hi)
+        n_high = -1
         for _ in range(50):  # iterations, not samples: converges in a few steps
             high = y >= t
-            low_level, high_level = float(np.median(y[~high])), float(np.median(y[high]))
+            count = int(np.count_nonzero(high))
+            if count in (0, y.size):
+                return np.empty(0)
+            if count == n_high:  # thresholds split nested sets: the same classes as the last step, same medians
+                break
+            n_high = count
+            low_level, high_level = _median(y[~high], lo), _median(y[high], hi)
             t_new = 0.5 * (low_level + high_level)
             if t_new == t:
                 break
             t = t_new
-        high = y >= t
-        if not high.any() or high.all():
-            return np.empty(0)
-        low_level, high_level = float(np.median(y[~high])), float(np.median(y[high]))
-        spread = 1.4826 * float(np.median(np.abs(y - np.where(high, high_level, low_level))))
+        else:  # no convergence: the classes of the last threshold
+            high = y >= t
+            if not high.any() or high.all():
+                return np.empty(0)
+            low_level, high_level = _median(y[~high], lo), _median(y[high], hi)
+        spread = 1.4826 * _median(np.abs(y - np.where(high, high_level, low_level)), 0.0)
         if not high_level - low_level > _MIN_LEVEL_SEPARATION * spread:
             return np.empty(0)
         threshold = t
@@ -167,7 +207,7 @@ def _flux(x: np.ndarray, fs: float, n_frame: int, hop: int, gamma: float | None,
     if x.size < n_frame:
         return np.empty(0), np.empty(0)
     frames = sliding_window_view(x, n_frame)[::hop]
-    window = scipy.signal.get_window("hann", n_frame).astype(dtype)  # periodic Hann
+    window = window_values("hann", n_frame).astype(dtype, copy=False)  # periodic Hann
     spec = scipy.fft.rfft(frames.astype(dtype, copy=False) * window, axis=1)
     mag = np.abs(spec)
     if gamma is not None:
@@ -199,33 +239,49 @@ def _aic_split(y: np.ndarray) -> int:
     return int(k[lo + int(np.argmin(aic[lo:hi]))])
 
 
-def _onsets(x: np.ndarray, fs: float, n_frame: int, hop: int, delta: float, lam: float, median_frames: int,
-            gap_frames: int, gamma: float | None, dtype=np.float64) -> tuple[np.ndarray, np.ndarray]:
-    """Onset times (s) and their strengths (flux peak in robust standard deviations), sorted by time."""
-    _, flux = _flux(x, fs, n_frame, hop, gamma, dtype)
-    if flux.size < 3:
-        return np.empty(0), np.empty(0)
+def _robust_scale(flux: np.ndarray) -> tuple[float, float] | None:
+    """(centre, scale) of a flux: median and 1.4826·MAD; None when it has no spread (e.g. digital silence)."""
     centre = float(np.median(flux))
     dev = np.abs(flux - centre)
     scale = 1.4826 * float(np.median(dev))
     if not scale > 1e-12 * float(np.max(dev)):
         # Mostly exact silence (flux 0 in most frames): fall back to the mean absolute deviation.
         scale = float(np.mean(dev))
-    if not scale > 0:
-        return np.empty(0), np.empty(0)
+    return (centre, scale) if scale > 0 else None
+
+
+def _picked(x: np.ndarray, offset: int, n_samples: int, flux: np.ndarray, first_frame: int, centre: float,
+            scale: float, n_frame: int, hop: int, delta: float, lam: float, median_frames: int,
+            gap_frames: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(onset samples, strengths, peak frames) of the flux of frames first_frame.. of a recording of n_samples,
+    sorted by onset; x holds its samples from sample offset on (at least to 2N past the last frame's start)."""
     z = (flux - centre) / scale
     local = scipy.ndimage.median_filter(z, size=2 * median_frames + 1, mode="nearest")
     peaks, _ = scipy.signal.find_peaks(z, height=delta + lam * local, distance=max(1, gap_frames))
     if peaks.size == 0:
-        return np.empty(0), np.empty(0)
+        return np.empty(0, dtype=np.int64), np.empty(0), np.empty(0, dtype=np.int64)
     # The flux of frame p peaks while the start of the sound sits inside frame p (Hann: mostly in its right
     # half), so look for the change point in [p·hop - N, p·hop + 2N): a frame or more of signal on each side.
-    starts = peaks * hop
+    frames = peaks + first_frame
+    starts = frames * hop
     lo = np.maximum(starts - n_frame, 0)
-    hi = np.minimum(starts + 2 * n_frame, x.size)
-    onset = np.array([lo_i + _aic_split(x[lo_i:hi_i]) for lo_i, hi_i in zip(lo, hi)])  # loop over peaks
+    hi = np.minimum(starts + 2 * n_frame, n_samples)
+    onset = np.array([lo_i + _aic_split(x[lo_i - offset:hi_i - offset]) for lo_i, hi_i in zip(lo, hi)])
     order = np.argsort(onset, kind="stable")
-    return onset[order] / fs, z[peaks][order]
+    return onset[order], z[peaks][order], frames[order]
+
+
+def _onsets(x: np.ndarray, fs: float, n_frame: int, hop: int, delta: float, lam: float, median_frames: int,
+            gap_frames: int, gamma: float | None, dtype=np.float64) -> tuple[np.ndarray, np.ndarray]:
+    """Onset times (s) and their strengths (flux peak in robust standard deviations), sorted by time."""
+    _, flux = _flux(x, fs, n_frame, hop, gamma, dtype)
+    if flux.size < 3:
+        return np.empty(0), np.empty(0)
+    norm = _robust_scale(flux)
+    if norm is None:
+        return np.empty(0), np.empty(0)
+    onset, strength, _ = _picked(x, 0, x.size, flux, 0, *norm, n_frame, hop, delta, lam, median_frames, gap_frames)
+    return onset / fs, strength
 
 
 def _onset_options(fs, frame_s, hop_s, delta, lambda_, median_s, min_gap_s, log_gamma):
@@ -362,6 +418,113 @@ def onset_candidates(x, *, sample_rate_hz: float, frame_s: float = ONSET_FRAME_S
     return _onsets(x, fs, *opts, dtype=dtype)
 
 
+#: Length (s) of the background stretch whose flux normalises a windowed onset search (see window_onsets): 100
+#: frames at the 1 ms hop, enough for a median and MAD to settle; the pipeline places it before the first search
+#: window of a recording, where the rig is quiet.
+ONSET_BACKGROUND_S = 0.1
+# Fewer frames than this in the background stretch (a window at the very start of a recording): the normalisation
+# is taken over the frames of the search itself instead.
+_MIN_BACKGROUND_FRAMES = 20
+
+
+def _flux_frames(x: np.ndarray, first: int, stop: int, n_frame: int, hop: int, gamma: float | None,
+                 dtype) -> np.ndarray:
+    """Flux of frames first..stop-1 of the recording's frame grid (frame n = samples [n·hop, n·hop + N)), each
+    against its predecessor: the numbers _flux(x, ...)[1][first:stop] holds, from the samples they need only."""
+    lead = 1 if first > 0 else 0
+    seg = _clean(x[(first - lead) * hop:(stop - 1) * hop + n_frame])
+    return _flux(seg, 1.0, n_frame, hop, gamma, dtype)[1][lead:]
+
+
+def _window_plan(n_samples, fs, lo_s, hi_s, b0_s, b1_s, n_frame, hop, med, gap):
+    """Frame ranges [start, stop) of a windowed onset search: (core, span, background), or None when the window
+    holds no frame. core: the frames whose peaks can put an onset in the window; span: core with the context
+    the threshold and the min-gap rule need; background: the frames wholly inside the background stretch."""
+    n_total = (n_samples - n_frame) // hop + 1 if n_samples >= n_frame else 0
+    if n_total < 3 or not hi_s > lo_s:
+        return None
+    # A peak at frame p puts its onset in [p·hop - N, p·hop + 2N) (see _picked).
+    core0 = max(0, math.floor((lo_s * fs - 2 * n_frame) / hop))
+    core1 = min(n_total, math.floor((hi_s * fs + n_frame) / hop) + 1)
+    if core1 <= core0:
+        return None
+    context = med + 2 * max(1, gap) + 1
+    span0, span1 = max(0, core0 - context), min(n_total, core1 + context)
+    bg0 = max(0, math.ceil(round(b0_s * fs) / hop))
+    bg1 = min(n_total, math.floor((round(b1_s * fs) - n_frame) / hop) + 1)
+    return core0, core1, span0, span1, bg0, bg1
+
+
+def window_search_frames(*, n_samples: int, sample_rate_hz: float, search_start_s: float, search_stop_s: float,
+                         background_start_s: float, background_stop_s: float, frame_s: float = ONSET_FRAME_S,
+                         hop_s: float = ONSET_HOP_S, median_s: float = 0.05,
+                         min_gap_s: float = 0.02) -> np.ndarray:
+    """Start samples of the frames whose spectra window_onsets computes for this window and stretch (each
+    flux frame and the one before it), ascending, int64; for a benchmark's floor of the same work."""
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    n_frame, hop, _, _, med, gap, _ = _onset_options(fs, frame_s, hop_s, 0.0, 1.0, median_s, min_gap_s, None)
+    plan = _window_plan(int(n_samples), fs, float(search_start_s), float(search_stop_s), float(background_start_s),
+                        float(background_stop_s), n_frame, hop, med, gap)
+    if plan is None:
+        return np.empty(0, dtype=np.int64)
+    _, _, span0, span1, bg0, bg1 = plan
+    pieces = [(span0, span1)]
+    if bg1 - bg0 >= _MIN_BACKGROUND_FRAMES:
+        pieces = [(bg0, bg1), (span0, span1)] if bg1 < span0 or bg0 > span1 else [(min(span0, bg0), max(span1, bg1))]
+    frames = np.concatenate([np.arange(max(0, a - 1), b) for a, b in pieces])
+    return np.unique(frames).astype(np.int64) * hop
+
+
+def window_onsets(x, *, sample_rate_hz: float, search_start_s: float, search_stop_s: float,
+                  background_start_s: float, background_stop_s: float, frame_s: float = ONSET_FRAME_S,
+                  hop_s: float = ONSET_HOP_S, delta: float = 6.0, lambda_: float = 1.0, median_s: float = 0.05,
+                  min_gap_s: float = 0.02, log_gamma: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """(onset times in s, strengths in robust SDs) of the onsets in [search_start_s, search_stop_s], for
+    find_event(..., onsets=...), from the spectral flux of only the frames that window needs.
+
+    The frames are those of onset_candidates (same grid, same flux per frame): the frames whose change point can
+    fall in the window, with median_s + 2·min_gap_s of frames on each side so that the adaptive threshold and the
+    min_gap_s rule see what they would see over the whole recording. Normalisation (see detect_onsets) comes from
+    a stated background stretch instead of the whole recording: z = (SF - median)/(1.4826·MAD) with median and MAD
+    of the flux of the frames lying wholly in [background_start_s, background_stop_s) (s from the recording
+    start; the quiet stretch before the first event). When that stretch holds fewer than 20 frames (it lies
+    before the recording start, or is empty) they come from the window's own frames instead. Peaks and
+    their order do not depend on the normalisation; with lambda_ = 1 the threshold depends on the scale only.
+    A float32 signal has its spectra computed in float32, as in onset_candidates.
+    """
+    dtype = np.float32 if np.asarray(x).dtype == np.float32 else np.float64
+    x = as_signal("x", x)
+    fs = number("sample_rate_hz", sample_rate_hz, low=0.0, low_open=True)
+    n_frame, hop, d, lam, med, gap, gamma = _onset_options(fs, frame_s, hop_s, delta, lambda_, median_s,
+                                                           min_gap_s, log_gamma)
+    lo_s, hi_s = number("search_start_s", search_start_s), number("search_stop_s", search_stop_s)
+    b0_s, b1_s = number("background_start_s", background_start_s), number("background_stop_s", background_stop_s)
+    empty = np.empty(0), np.empty(0)
+    plan = _window_plan(x.size, fs, lo_s, hi_s, b0_s, b1_s, n_frame, hop, med, gap)
+    if plan is None:
+        return empty
+    core0, core1, span0, span1, bg0, bg1 = plan
+    if bg1 - bg0 < _MIN_BACKGROUND_FRAMES:  # no usable stretch: normalise over the window's own frames
+        flux = _flux_frames(x, span0, span1, n_frame, hop, gamma, dtype)
+        background = flux
+    elif bg1 < span0 or bg0 > span1:  # apart: two pieces
+        background = _flux_frames(x, bg0, bg1, n_frame, hop, gamma, dtype)
+        flux = _flux_frames(x, span0, span1, n_frame, hop, gamma, dtype)
+    else:  # overlapping or touching: one piece holds both
+        first = min(span0, bg0)
+        both = _flux_frames(x, first, max(span1, bg1), n_frame, hop, gamma, dtype)
+        background = both[bg0 - first:bg1 - first]
+        flux = both[span0 - first:span1 - first]
+    norm = _robust_scale(background)
+    if norm is None:
+        return empty
+    a, b = span0 * hop, min(x.size, (span1 - 1) * hop + 3 * n_frame)  # the samples the change points need
+    onset, strength, frames = _picked(_clean(x[a:b]), a, x.size, flux, span0, *norm, n_frame, hop, d, lam, med, gap)
+    times = onset / fs
+    keep = (frames >= core0) & (frames < core1) & (times >= lo_s) & (times <= hi_s)
+    return times[keep], strength[keep]
+
+
 def _energy_onset(x, fs, lo_s, hi_s, n_frame, hop, floor_db, start_db) -> float:
     """First frame in [lo_s, hi_s] at floor + start_db, refined to the change point around it; NaN if none."""
     i_lo, i_hi = max(0, int(round(lo_s * fs))), min(x.size, int(round(hi_s * fs)))
@@ -392,15 +555,17 @@ def find_event(x, *, sample_rate_hz: float, name: str, search_start_s: float, se
     """Find one named event: the strongest onset in [search_start_s, search_stop_s] (s from the recording start).
 
     Onsets come from detect_onsets over the whole recording (frame_s, hop_s, delta, lambda_, median_s, min_gap_s,
-    log_gamma); the strongest one (highest flux peak) whose onset time lies in the window is taken. Its end comes
-    from event_end (level_frame_s, floor_db, start_above_db, end_below_db, min_duration_s, merge_gap_s) searched
-    up to max_length_s after the onset. peak_dbfs is 20·log10 of the largest |sample| between onset and end.
+    log_gamma) unless given (onsets); the strongest one (highest flux peak) whose onset time lies in the window is
+    taken. Its end comes from event_end (level_frame_s, floor_db, start_above_db, end_below_db, min_duration_s,
+    merge_gap_s) searched up to max_length_s after the onset. peak_dbfs is 20·log10 of the largest |sample|
+    between onset and end.
     With marker_s (the caller has already placed the window relative to the marker) method is "marker" and
     latency_s = onset_s - marker_s; without it method is "onset" and latency_s is NaN.
     detector="energy" is for events whose sound swells instead of striking (an inhalation): the onset is the
     first hop_s frame (level_frame_s long) in the window at start_above_db over the noise floor, moved to the
     change point of the signal around it (AIC picker, Maeda 1985). onsets: (times_s, strengths) from an
-    onset_candidates() call on the same signal and options, so several events share one flux pass.
+    onset_candidates() call on the same signal and options (several events share one flux pass), or from
+    window_onsets() for this window (the flux of the window only, as the pipeline does).
     A window that is undefined (NaN), empty or outside the recording, a NaN marker_s, no onset in the window, or
     an onset that does not rise start_above_db over the noise floor gives found=False, method="missing" and a
     reason; this holds with a marker too (a marker with no sound after it is a missing event, not a found one).

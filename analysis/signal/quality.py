@@ -129,16 +129,21 @@ _REACHES = (4.0, 32.0, math.inf)
 
 
 def _side(y: np.ndarray, sign: str, *, tolerance: float, run: int, bin_width: float, ratio: float) -> _Side | None:
-    peak = float(y.max())
+    """The extreme of sign·y; y itself is passed for both signs (the negative side reads -min(y) and d = peak + y,
+    the same numbers as for -y, without making -y)."""
+    peak = float(y.max()) if sign == "+" else -float(y.min())
     if peak <= 0.0:
         return None
-    d = peak - y
+    d = peak - y if sign == "+" else peak + y
     # Whole tolerance steps, so that every bin of a quantised file holds the same number of steps.
     coarse_fs = max(1.0, round(bin_width * peak / tolerance)) * tolerance
     # Both counts need only the top of the histogram, usually a small share of the samples: read it within a few
-    # coarse bins of the peak, further down only when a bin below is not found there.
+    # coarse bins of the peak, further down only when a bin below is not found there. The widest finite reach is
+    # taken from all samples once; the narrower ones from it.
+    widest = max(r for r in _REACHES if math.isfinite(r))
+    wide = d[d < widest * coarse_fs]
     for reach in _REACHES:
-        top = d[d < reach * coarse_fs] if math.isfinite(reach) else d
+        top = wide[wide < reach * coarse_fs] if reach < widest else wide if reach == widest else d
         # A rounded (locally quadratic) top puts at most 1 + √2 times as many samples within a band of the peak as
         # in the band of the same width below it; a flat top puts nearly all of them in the first.
         fine = _pile(top, tolerance, ratio=ratio, run=run, reach=reach * coarse_fs)
@@ -206,9 +211,10 @@ def check_clipping(x, *, clip_level: float = 0.999, min_run: int = 3, max_fracti
     counts = {"full": (full, f"{_pct(full)} of samples in {_plural(long_runs.size, 'run')} of {run} or more "
                              f"samples at or above {level:g} FS")}
 
-    y = np.where(np.isfinite(x), x, 0.0).astype(np.float64, copy=False)
+    finite = np.isfinite(x)
+    y = (x if finite.all() else np.where(finite, x, 0.0)).astype(np.float64, copy=False)
     sides = [s for s in (_side(y, "+", tolerance=tolerance, run=run, bin_width=width, ratio=ratio),
-                         _side(-y, "-", tolerance=tolerance, run=run, bin_width=width, ratio=ratio)) if s is not None]
+                         _side(y, "-", tolerance=tolerance, run=run, bin_width=width, ratio=ratio)) if s is not None]
     flat = [s for s in sides if s.flat]
     if flat:
         k = sum(s.flat for s in flat)

@@ -14,6 +14,7 @@ and bandwidths (``block_values``) are the reference model's resonance block (ana
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -56,10 +57,18 @@ def zoom_power(x, *, first_bin: int, n_bins: int, n_fft: int) -> np.ndarray:
     """|X_k|² for k = first_bin .. first_bin + n_bins - 1 of the n_fft-point DFT of the rows of x (..., n), n <=
     n_fft (zero-padded): the chirp z-transform on the unit circle (scipy.signal.czt), whose cost follows n +
     n_bins, not n_fft."""
-    from scipy.signal import czt
-
-    spec = czt(x, m=int(n_bins), w=np.exp(-2j * np.pi / n_fft), a=np.exp(2j * np.pi * first_bin / n_fft), axis=-1)
+    x = np.asarray(x)
+    spec = _zoom(x.shape[-1], int(n_bins), int(n_fft), int(first_bin))(x, axis=-1)
     return spec.real**2 + spec.imag**2
+
+
+# The transform's chirps cost more to make than to apply to an event's slices, and every recording of a profile
+# asks for the same one.
+@functools.lru_cache(maxsize=32)
+def _zoom(n: int, n_bins: int, n_fft: int, first_bin: int):
+    from scipy.signal import CZT
+
+    return CZT(n, m=n_bins, w=np.exp(-2j * np.pi / n_fft), a=np.exp(2j * np.pi * first_bin / n_fft))
 
 
 def _half_power_width(db, k, top_db, bin_hz):

@@ -7,6 +7,7 @@ with S1 = Σw and S2 = Σw², the one-sided power spectrum is 2|X_k|²/S1² and 
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -106,24 +107,34 @@ def frames(x, starts, n_window: int) -> np.ndarray:
     # A frame wholly outside the signal is all zeros wherever it starts, so clipping the starts bounds the padding
     # to one frame on each side.
     starts = np.clip(np.asarray(starts, dtype=np.int64), -n, x.size)
-    pad_before = max(0, -int(starts.min(initial=0)))
-    pad_after = max(0, int(starts.max(initial=0)) + n - x.size)
-    if pad_before or pad_after or x.dtype != np.float64:
-        padded = np.zeros(pad_before + x.size + pad_after, dtype=np.float64)
-        padded[pad_before:pad_before + x.size] = x
+    # Only the stretch the frames cover is copied (as float64, zero-padded where it runs outside the signal).
+    lo, hi = int(starts.min(initial=0)), int(starts.max(initial=0)) + n
+    if lo >= 0 and hi <= x.size and x.dtype == np.float64:
+        span = x[lo:hi]
     else:
-        padded = x
+        span = np.zeros(hi - lo, dtype=np.float64)
+        a, b = max(lo, 0), min(hi, x.size)
+        if b > a:
+            span[a - lo:b - lo] = x[a:b]
     # A strided view of every possible frame; fancy indexing copies only the frames asked for.
-    return np.lib.stride_tricks.sliding_window_view(padded, n)[starts + pad_before]
+    return np.lib.stride_tricks.sliding_window_view(span, n)[starts - lo]
 
 
 def window_values(window, n_window: int) -> np.ndarray:
-    """The periodic (DFT-even) window of length n_window, as scipy.signal.get_window gives it."""
+    """The periodic (DFT-even) window of length n_window, as scipy.signal.get_window gives it (read-only)."""
     try:
-        return scipy.signal.get_window(window, int(n_window), fftbins=True).astype(np.float64)
+        return _window(window, int(n_window))
     except (ValueError, TypeError) as exc:
         raise ParameterError(f"window must be a window name scipy.signal.get_window accepts; got {window!r} "
                              f"({exc})") from None
+
+
+# Every recording asks for the same few windows; making one costs as much as transforming an event's slices.
+@functools.lru_cache(maxsize=64)
+def _window(window, n_window: int) -> np.ndarray:
+    w = scipy.signal.get_window(window, n_window, fftbins=True).astype(np.float64)
+    w.setflags(write=False)
+    return w
 
 
 def rfft_freqs(n_window: int, sample_rate_hz: float) -> np.ndarray:

@@ -40,6 +40,39 @@ def test_time_range_reads_only_that_range(tmp_path):
     np.testing.assert_allclose(part.samples[:, 0], ramp[FS // 4 : FS // 2], rtol=0, atol=1e-7)
 
 
+@pytest.mark.parametrize("fmt,subtype", [("FLAC", "PCM_16"), ("FLAC", "PCM_24"), ("WAV", "PCM_16"),
+                                         ("WAV", "PCM_24"), ("WAV", "FLOAT")])
+def test_a_time_range_holds_the_samples_of_a_full_read(tmp_path, fmt, subtype):
+    # Reference: soundfile.read of the whole file as float32 (libsndfile's own conversion); the reader's full
+    # decode and every range it seeks to must hold exactly those samples.
+    rng = np.random.default_rng(3)
+    data = np.clip(rng.normal(0, 0.3, (FS, 2)), -1, 1)
+    data[:, 1] = np.where(np.arange(FS) % 4800 < 480, 0.8, 0.0)
+    path = write_recording(tmp_path, fmt=fmt, subtype=subtype, data=data, sidecar=False)
+    full, fs = sf.read(str(path), dtype="float32", always_2d=True)
+    assert fs == FS
+    np.testing.assert_array_equal(read_audio(path).samples, full)
+    for start_s, stop_s in ((0.25, 0.5), (0.0, 0.01), (0.3001, 0.7777), (0.9, None), (None, 0.1)):
+        part = read_audio(path, start_s=start_s, stop_s=stop_s)
+        first = 0 if start_s is None else round(start_s * FS)
+        last = FS if stop_s is None else round(stop_s * FS)
+        assert part.samples.dtype == np.float32 and part.start_s == first / FS
+        np.testing.assert_array_equal(part.samples, full[first:last])
+
+
+def test_a_seek_that_fails_names_the_file_and_the_reason(tmp_path):
+    # A FLAC cut short: its header still promises 2 s, so a seek into the missing second half fails.
+    data = np.random.default_rng(4).normal(0, 0.1, (2 * FS, 2))
+    path = write_recording(tmp_path, stem="cut", data=data, sidecar=False)
+    with open(path, "r+b") as f:
+        f.truncate(path.stat().st_size // 3)
+    with pytest.raises(AudioError, match=r"cut\.flac: cannot seek to 1\.5 s \(frame 72000 of the 96000 its header "
+                                         r"promises\): .+; the file may be truncated"):
+        read_audio(path, start_s=1.5, stop_s=1.9)
+    with pytest.raises(AudioError, match=r"cut\.flac: (truncated|decoding failed)"):  # the full decode fails too
+        read_audio(path)
+
+
 def test_range_past_the_end_is_clipped_to_the_file(tmp_path):
     path = write_recording(tmp_path, fmt="WAV", subtype="FLOAT", data=np.zeros((100, 1)) + 0.1)
     assert read_audio(path, start_s=0.0, stop_s=10.0).n_frames == 100
@@ -334,3 +367,19 @@ def test_every_format_taken_from_folders_passes_the_header_check(tmp_path, fmt, 
     sf.write(str(path), x[:, None], FS, format=fmt, subtype=subtype)
     audio = read_audio(path)
     assert audio.samples.shape == (FS // 10, 1) and audio.sample_rate_hz == FS
+
+
+def test_the_printable_shortcut_of_the_sidecar_text_check_lets_nothing_through():
+    # The check skips its per-character loop for text str.isprintable() accepts; no printable code point may be a
+    # control (Cc), format (Cf) or surrogate (Cs) character, or the shortcut would pass what the loop rejects.
+    import sys
+    import unicodedata
+
+    from analysis.io import _bad_character
+
+    leaks = [cp for cp in range(sys.maxunicode + 1)
+             if chr(cp).isprintable() and unicodedata.category(chr(cp)) in ("Cc", "Cf", "Cs")]
+    assert leaks == []
+    assert _bad_character("L2601-01") is None and _bad_character("Zoë Ng") is None
+    assert _bad_character("a\u200bb") == "holds the invisible formatting character U+200B at character 1"
+    assert _bad_character("a\tb", allow="\t\n") is None and _bad_character("a\tb") is not None

@@ -131,3 +131,35 @@ def test_resonances_are_in_the_json(recording, capsys):
     (res,) = out["features"]["dose_release"]["resonances"]
     assert (res["low_hz"], res["high_hz"]) == (900.0, 1600.0) and 900.0 <= res["frequency_hz"] <= 1600.0
     assert out["features"]["metering_click"]["resonances"] == []
+
+
+def test_windowed_onset_search_agrees_with_the_whole_recording_search(small_scenario):
+    # The pipeline computes the flux of each event's search window only, normalised by the quiet stretch before
+    # the first window; the whole-recording search (onset_candidates, normalised by the whole flux) must place
+    # every event the same on the generator's recordings: with their markers, and without them (the fallback
+    # window of the profile, from the recording start).
+    from analysis import io
+    from analysis.pipeline import ONSET_LOG_GAMMA
+    from analysis.signal.events import find_event, onset_candidates
+
+    spec = PROFILE.events[0]
+    assert spec.detector == "flux"
+    files = sorted(small_scenario.rglob("*.flac"))
+    assert len(files) == 120
+    found = {"marker": 0, "onset": 0}
+    for path in files:
+        audio = io.read_audio(path)
+        mic, fs = audio.channel(0), audio.sample_rate_hz
+        whole = onset_candidates(mic, sample_rate_hz=fs, log_gamma=ONSET_LOG_GAMMA)
+        with_markers = analyse_file(path)
+        without = analyse_signals(mic, sample_rate_hz=fs, profile=PROFILE)
+        m = with_markers.markers_s[0]
+        for result, window in (
+            (with_markers, dict(search_start_s=m + spec.window_s[0], search_stop_s=m + spec.window_s[1], marker_s=m)),
+            (without, dict(search_start_s=spec.search_s[0], search_stop_s=spec.search_s[1], marker_s=None)),
+        ):
+            expected = find_event(mic, sample_rate_hz=fs, name=spec.name, max_length_s=spec.length_s,
+                                  log_gamma=ONSET_LOG_GAMMA, onsets=whole, **window)
+            assert result.event(spec.name) == expected, (path.name, window)
+            found[expected.method] += expected.found
+    assert found["marker"] == 120 and found["onset"] >= 100, found  # both kinds of window were exercised

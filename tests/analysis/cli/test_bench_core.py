@@ -27,6 +27,9 @@ def test_bench_analyse_prints_its_ratios_last():
           for key, line in zip(("ours", "floor", "peer"), lines[1:4])}
     assert _ratio(lines[-2], "ratio_to_floor") == pytest.approx(ms["ours"] / ms["floor"], rel=0.02)
     assert _ratio(lines[-1], "speedup_vs_peer") == pytest.approx(ms["peer"] / ms["ours"], rel=0.02)
+    # and against the older floor, whose flux frames span the whole recording
+    older = float(re.search(r"older floor: ([0-9.]+) ms per recording", lines[4]).group(1))
+    assert _ratio(lines[-3], "ratio_to_whole_flux_floor") == pytest.approx(ms["ours"] / older, rel=0.02)
 
 
 def test_bench_score_prints_its_ratio_last():

@@ -33,6 +33,31 @@ def test_white_noise_band_powers_add_up_to_its_variance():
     assert total == pytest.approx(1e-4 * (hi - lo) / (FS / 2), rel=0.1)
 
 
+@pytest.mark.parametrize("n_samples", [12000, 12001])  # an even and an odd number of samples
+def test_band_levels_are_scipys_hann_periodogram_summed_into_the_bands(n_samples):
+    # Reference: scipy.signal.periodogram (Hann, density scaling, mean removed) of the same stretch, each bin
+    # summed into the one-third-octave band its frequency falls in.
+    from scipy.signal import periodogram
+
+    from analysis.signal.bands import third_octave_bands
+
+    rng = np.random.default_rng(5)
+    t = np.arange(int(0.4 * FS)) / FS
+    x = 0.003 + rng.normal(0, 0.001, t.size) + 0.02 * np.sin(2 * np.pi * 50 * t) + 0.01 * np.sin(2 * np.pi * 3150 * t)
+    bg = background_levels(x, sample_rate_hz=FS, first_event_s=0.3, background_max_s=n_samples / FS)
+    start = int(round(bg.start_s * FS))
+    seg = x[start:start + int(round(bg.duration_s * FS))]
+    assert seg.size == n_samples
+    f, psd = periodogram(seg - seg.mean(), fs=FS, window="hann", detrend=False, scaling="density")
+    layout = third_octave_bands(fmin_hz=40.0, fmax_hz=16000.0)
+    expected = []
+    for lo, hi, centre in zip(layout.lower_hz, layout.upper_hz, layout.centres_hz):
+        if centre in bg.band_centres_hz:
+            inside = (f >= lo) & (f < hi)
+            expected.append(10 * np.log10(np.sum(psd[inside]) * FS / seg.size))
+    np.testing.assert_allclose(bg.levels_db, expected, rtol=0, atol=1e-9)
+
+
 def test_too_short_a_stretch_or_bad_samples_give_none():
     x = np.zeros(FS)
     assert background_levels(x, sample_rate_hz=FS, first_event_s=0.02) is None

@@ -63,6 +63,41 @@ def test_marker_edges_debounce_and_spikes():
     np.testing.assert_array_equal(edges, np.array([5000, 30000]) / FS)
 
 
+@pytest.mark.parametrize("kind", ["clean", "spikes", "edges at the ends", "noisy", "short"])
+def test_marker_median_filter_is_scipys_where_it_skips_flat_stretches(kind):
+    # Reference: scipy.ndimage.median_filter(size=5, mode="nearest") over the whole channel.
+    import scipy.ndimage
+
+    from analysis.signal.events import _median_filtered
+
+    rng = np.random.default_rng(2)
+    m = _pulse_train([1000, 5000, 5003], 400, 20_000, high=0.8)
+    if kind == "spikes":
+        m[rng.integers(0, m.size, 30)] = rng.uniform(-1, 1, 30)
+        m[7000:7002] = 0.8  # a two-sample blip
+    elif kind == "edges at the ends":
+        m[:3] = 0.8
+        m[-2:] = 0.5
+    elif kind == "noisy":
+        m = m + rng.normal(0, 0.01, m.size)
+    elif kind == "short":
+        m = np.array([0.0, 1.0, 0.0, 1.0])
+    np.testing.assert_array_equal(_median_filtered(m), scipy.ndimage.median_filter(m, size=5, mode="nearest"))
+
+
+@pytest.mark.parametrize("n", [7, 8, 101, 1000])
+def test_marker_level_median_is_numpys(n):
+    # Reference: np.median, for every share of samples at the likely value, below, at and past half.
+    from analysis.signal.events import _median
+
+    rng = np.random.default_rng(n)
+    for k in range(n + 1):
+        for others in ((-1.0, 1.0), (-1.0, 0.0), (0.5, 1.0)):  # the likely value amid, above or below the rest
+            a = rng.uniform(*others, n)
+            a[rng.permutation(n)[:k]] = 0.25
+            assert _median(a, 0.25) == np.median(a), (n, k, others)
+
+
 def test_marker_edges_with_a_given_threshold():
     m = _pulse_train([1000, 9000], 200, 20000, low=0.0, high=1.0)
     m[1000:1005] = 0.3  # slow first rise: above 0.25 from sample 1000, above 0.5 only from 1005
@@ -340,3 +375,93 @@ def test_shared_onset_candidates_give_the_same_event():
     b = find_event(x, sample_rate_hz=fs, name="c", search_start_s=0.45, search_stop_s=0.55, max_length_s=0.05,
                    log_gamma=1000.0, onsets=shared)
     assert a == b and a.found and abs(a.onset_s - 0.5) <= 0.001
+
+
+# ---------------------------------------------------------------- the windowed onset search
+
+def _click_after_two_noise_levels(seed=3):
+    """1 s at 48 kHz: noise of 1e-3 FS RMS for 0.3 s, then 1e-2 FS; a 3 kHz click at 0.6 s."""
+    rng = np.random.default_rng(seed)
+    n = int(FS)
+    x = rng.standard_normal(n) * np.where(np.arange(n) < 0.3 * FS, 1e-3, 1e-2)
+    return x + _click(n, int(0.6 * FS), f_hz=3000.0, tau_s=0.004, amp=0.5)
+
+
+@pytest.mark.parametrize("stretch", [(0.1, 0.2), (0.35, 0.55)])
+def test_window_onsets_are_normalised_by_the_stated_background_stretch(stretch):
+    # The strength of an onset is its flux peak in robust SDs of the flux of the frames wholly inside the stated
+    # stretch: (SF - median)/(1.4826·MAD), computed here from spectral_flux over the whole signal. A quiet and a
+    # loud stretch give different strengths for the same peak, each by its own numbers.
+    from analysis.signal.events import window_onsets
+
+    x = _click_after_two_noise_levels()
+    times, strength = window_onsets(x, sample_rate_hz=FS, search_start_s=0.58, search_stop_s=0.62,
+                                    background_start_s=stretch[0], background_stop_s=stretch[1], log_gamma=1000.0)
+    assert times.size == 1 and abs(times[0] - 0.6) <= HOP_S
+    t, flux = spectral_flux(x, sample_rate_hz=FS, log_gamma=1000.0)
+    start = t - 0.0025  # frame start: centre - frame_s / 2
+    inside = (start >= stretch[0] - 1e-9) & (start + 0.005 <= stretch[1] + 1e-9)
+    assert inside.sum() == round((stretch[1] - stretch[0] - 0.005) / HOP_S) + 1
+    centre = np.median(flux[inside])
+    scale = 1.4826 * np.median(np.abs(flux[inside] - centre))
+    peak = flux[np.abs(t - 0.6) < 0.006].max()
+    assert strength[0] == pytest.approx((peak - centre) / scale, rel=1e-5)
+
+
+def test_window_onsets_do_not_depend_on_sound_outside_the_window_and_its_stretch():
+    # A loud burst elsewhere in the recording changes the whole-recording normalisation, not the windowed one.
+    from analysis.signal.events import window_onsets
+
+    x = _click_after_two_noise_levels()
+    y = x.copy()
+    y[int(0.8 * FS):int(0.95 * FS)] += np.random.default_rng(4).standard_normal(int(0.15 * FS)) * 0.3
+    opts = dict(sample_rate_hz=FS, search_start_s=0.58, search_stop_s=0.62, background_start_s=0.1,
+                background_stop_s=0.2, log_gamma=1000.0)
+    a, b = window_onsets(x, **opts), window_onsets(y, **opts)
+    np.testing.assert_array_equal(a[0], b[0])
+    np.testing.assert_array_equal(a[1], b[1])
+
+
+def test_window_onsets_without_a_usable_stretch_normalise_by_the_search_itself():
+    # A stretch before the recording start holds no frame: the search's own frames normalise it, and the click
+    # near the start is still found.
+    from analysis.signal.events import window_onsets
+
+    x = np.roll(_click_after_two_noise_levels(), -int(0.55 * FS))  # click at 0.05 s in the loud noise
+    times, strength = window_onsets(x, sample_rate_hz=FS, search_start_s=0.0, search_stop_s=0.1,
+                                    background_start_s=-0.1, background_stop_s=0.0, log_gamma=1000.0)
+    assert times.size == 1 and abs(times[0] - 0.05) <= HOP_S and strength[0] > 6.0
+    assert window_onsets(x, sample_rate_hz=FS, search_start_s=2.0, search_stop_s=2.1, background_start_s=0.1,
+                         background_stop_s=0.2)[0].size == 0  # a window past the end holds no onset
+
+
+def test_window_onsets_name_a_bad_window():
+    from analysis.signal.events import window_onsets
+
+    with pytest.raises(ParameterError, match=r"search_start_s must be a finite number; got nan"):
+        window_onsets(np.zeros(4800), sample_rate_hz=FS, search_start_s=math.nan, search_stop_s=0.1,
+                      background_start_s=0.0, background_stop_s=0.05)
+
+
+def test_window_onsets_read_only_the_frames_window_search_frames_lists():
+    # Samples outside those frames (loud noise written over them) change nothing: the search computes the flux
+    # of the listed frames only, and the benchmark's floor counts exactly them.
+    from analysis.signal.events import window_onsets, window_search_frames
+
+    x = _click_after_two_noise_levels()
+    opts = dict(sample_rate_hz=FS, search_start_s=0.58, search_stop_s=0.62, background_start_s=0.1,
+                background_stop_s=0.2)
+    starts = window_search_frames(n_samples=x.size, **opts)
+    n = int(0.005 * FS)
+    used = np.zeros(x.size, dtype=bool)
+    for s in starts:
+        used[s:s + n] = True
+    assert 0.05 < used.mean() < 0.5  # a fraction of the recording: the stretch and the window with its context
+    y = np.where(used, x, np.random.default_rng(5).standard_normal(x.size))
+    a, b = window_onsets(x, log_gamma=1000.0, **opts), window_onsets(y, log_gamma=1000.0, **opts)
+    assert a[0].size == 1
+    np.testing.assert_array_equal(a[0], b[0])
+    np.testing.assert_array_equal(a[1], b[1])
+    # without a usable stretch only the window's own frames are read
+    near = window_search_frames(n_samples=x.size, **{**opts, "background_start_s": -0.2, "background_stop_s": 0.0})
+    assert near.min() > 0.3 * FS and set(near) < set(starts)

@@ -448,3 +448,22 @@ def test_own_peak_counts_match_a_plain_histogram_however_far_the_bin_below(gap_b
         plain[bin_fs] = (end, below, math.floor(end - ratio * below))
     assert (side.pile.end, side.pile.below, side.pile.excess) == plain[side.pile.bin_fs]
     assert side.pile.excess == max(v[2] for v in plain.values())
+
+
+def test_runs_of_a_mask_are_every_run_with_its_start_and_length():
+    # Against a plain loop over the samples.
+    rng = np.random.default_rng(11)
+    for mask in (rng.random(5000) < p for p in (0.0, 0.01, 0.5, 0.99, 1.0)):
+        expected, i = [], 0
+        while i < mask.size:
+            if mask[i]:
+                j = i
+                while j < mask.size and mask[j]:
+                    j += 1
+                expected.append((i, j - i))
+                i = j
+            else:
+                i += 1
+        starts, lengths = runs(mask)
+        assert starts.dtype == np.int64 and lengths.dtype == np.int64
+        assert list(zip(starts.tolist(), lengths.tolist())) == expected

@@ -69,6 +69,20 @@ def test_frames_past_the_end_are_zero_padded_and_counted():
     assert np.all(g[0, 50:] == 0)
 
 
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_frames_are_the_samples_of_each_frame_wherever_it_starts(dtype):
+    # Against a frame-by-frame copy out of a signal padded by two frames of zeros on each side: frames before the
+    # start, inside, across either end and wholly outside, from a float32 recording or a float64 signal.
+    x = (np.arange(1.0, 1001.0) / 1000.0).astype(dtype)
+    n = 64
+    padded = np.concatenate((np.zeros(2 * n), x.astype(np.float64), np.zeros(2 * n)))
+    for starts in ([-200, -64, -10, 0, 500, 990, 1000, 1300], [300, 400], [-5], [999]):
+        got = frames(x, starts, n)
+        assert got.dtype == np.float64 and got.shape == (len(starts), n)
+        want = [padded[2 * n + s:3 * n + s] if -2 * n <= s <= x.size + n else np.zeros(n) for s in starts]
+        np.testing.assert_array_equal(got, want)
+
+
 def test_spectrum_scaling_matches_welch_on_a_single_frame():
     # REFERENCES.md [C]: sine A = 1 at 1031.25 Hz (bin 88), fs 48 kHz, Hann 4096, welch 'spectrum' peak 0.5.
     t = np.arange(N) / FS
