@@ -117,7 +117,9 @@ def lot_chart_figure(chart, stat, *, cloud: pd.DataFrame | None = None, meeting:
                     x=x[m], y=y[m], mode="markers", name=name, legendgroup=name, showlegend=first,
                     marker=dict(color=colour, size=size, opacity=0.9 if flagged else 0.45,
                                 symbol="x" if flagged else "circle"),
-                    customdata=ids[m],
+                    # a plain list: Dash reads clickData customdata by index from the figure, and a numpy
+                    # array is sent as a base64 typed-array spec that cannot be indexed there
+                    customdata=ids[m].astype(int).tolist(),
                     hovertemplate=f"actuation %{{customdata:d}} · {full(rig)}<br>%{{y:.3g}}<extra></extra>",
                 ))
                 first = False
