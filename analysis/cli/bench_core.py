@@ -73,7 +73,7 @@ def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
     from ..demo import generate
     from ..pipeline import analyse_file, band_layout, search_window
     from ..profiles import load_profile
-    from ..signal.events import ONSET_BACKGROUND_S, ONSET_FRAME_S, ONSET_HOP_S, window_search_frames
+    from ..signal.events import ONSET_FRAME_S, ONSET_HOP_S, window_search_frames
     from ..signal.spectra import slice_grid
 
     with tempfile.TemporaryDirectory(prefix="harken-bench-") as tmp:
@@ -96,7 +96,7 @@ def bench_analyse(*, n_files: int = 60, repeat: int = 3, out=print) -> dict:
             for spec in profile.events:  # the windows and the stretch analysis.pipeline searches
                 window = search_window(spec, res.markers_s, timings)
                 if isinstance(window, tuple) and math.isfinite(window[0]):
-                    background = background or (window[0] - ONSET_BACKGROUND_S, window[0])
+                    background = background or (window[0] - profile.quality.background_max_s, window[0])
                     if spec.detector == "flux" and window[1] > window[0]:
                         plan.append((n_flux, window_search_frames(
                             n_samples=total, sample_rate_hz=fs, search_start_s=window[0], search_stop_s=window[1],

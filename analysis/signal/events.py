@@ -41,7 +41,6 @@ __all__ = [
     "onset_candidates",
     "window_onsets",
     "window_search_frames",
-    "ONSET_BACKGROUND_S",
     "DETECTORS",
 ]
 
@@ -418,10 +417,6 @@ def onset_candidates(x, *, sample_rate_hz: float, frame_s: float = ONSET_FRAME_S
     return _onsets(x, fs, *opts, dtype=dtype)
 
 
-#: Length (s) of the background stretch whose flux normalises a windowed onset search (see window_onsets): 100
-#: frames at the 1 ms hop, enough for a median and MAD to settle; the pipeline places it before the first search
-#: window of a recording, where the rig is quiet.
-ONSET_BACKGROUND_S = 0.1
 # Fewer frames than this in the background stretch (a window at the very start of a recording): the normalisation
 # is taken over the frames of the search itself instead.
 _MIN_BACKGROUND_FRAMES = 20
