@@ -29,13 +29,13 @@ from datetime import date, datetime, timedelta
 
 import numpy as np
 import pandas as pd
-from sqlalchemy import Date, and_, case, exists, func, literal_column, select, text, tuple_
+from sqlalchemy import Date, and_, case, func, literal_column, select, text, tuple_
 
 from . import schema as db
 from .types import STATISTICS
 
 __all__ = ["SAMPLE_PER_STRATUM", "profile_lock", "refresh_for", "refresh_counts", "rebuild", "compute",
-           "differences", "day_of", "sampling_key", "sampling_keys"]
+           "differences", "day_of", "sampling_key"]
 
 #: Actuations kept per (profile, lot, rig) for the single-actuation cloud.
 SAMPLE_PER_STRATUM = 64
@@ -67,11 +67,6 @@ def day_of(column):
 def sampling_key(id_column):
     """The sampling key of an actuation id, in SQL (an integer in [0, 2^32))."""
     return (id_column * literal_column(str(_HASH_MUL))) % literal_column(str(_HASH_MOD))
-
-
-def sampling_keys(ids) -> np.ndarray:
-    """The sampling keys of actuation ids, in numpy (the same numbers as ``sampling_key`` in SQL)."""
-    return (np.asarray(ids, dtype=np.int64) * _HASH_MUL) % _HASH_MOD
 
 
 def _value(stat, column):
@@ -126,16 +121,18 @@ def _active_ids(conn, profiles) -> list[int]:
 
 def _count_frame(conn, cond, profiles) -> pd.DataFrame:
     """cell_counts rows of the actuations matching ``cond``."""
-    a, f = db.actuations, db.flags
-    active = _active_ids(conn, profiles) or [-1]
+    from .queries._base import is_flagged, model_flag  # the one "flagged" rule (imported late: no cycle)
+
+    a = db.actuations
+    active = _active_ids(conn, profiles)
     day = day_of(a.c.recorded_at)
-    any_flag = exists().where(and_(f.c.actuation_id == a.c.id, (f.c.model_id.is_(None)) | f.c.model_id.in_(active)))
-    model_flag = exists().where(and_(f.c.actuation_id == a.c.id, f.c.model_id.in_(active)))
+    any_flag = is_flagged(active)
+    model_flagged = is_flagged(active, which=model_flag)
     stmt = (select(a.c.profile, a.c.lot_id, a.c.rig_id, a.c.unit_id, day.label("day"),
                    func.min(a.c.site_id).label("site_id"), func.count().label("n_all"),
                    func.sum(case((a.c.passed_qc.is_(False), 1), else_=0)).label("n_qc_failed"),
                    func.sum(case((any_flag, 1), else_=0)).label("n_flagged"),
-                   func.sum(case((model_flag, 1), else_=0)).label("n_model_flagged"),
+                   func.sum(case((model_flagged, 1), else_=0)).label("n_model_flagged"),
                    func.min(a.c.recorded_at).label("first"), func.max(a.c.recorded_at).label("last"))
             .where(cond).group_by(a.c.profile, a.c.lot_id, a.c.rig_id, a.c.unit_id, day))
     res = conn.execute(stmt)
@@ -149,9 +146,10 @@ def _sample_frame(conn, cond, profiles) -> pd.DataFrame:
     """cloud_sample rows of the strata matching ``cond`` (a condition on actuations covering whole strata):
     per stratum the SAMPLE_PER_STRATUM unflagged actuations of the lowest sampling key, ranked 1, 2, ..., and
     every flagged one (a flag that counts), ranked -1, -2, ... from the newest."""
-    a, f = db.actuations, db.flags
-    active = _active_ids(conn, profiles) or [-1]
-    flagged = exists().where(and_(f.c.actuation_id == a.c.id, f.c.model_id.is_(None) | f.c.model_id.in_(active)))
+    from .queries._base import is_flagged  # the one "flagged" rule (imported late: no cycle)
+
+    a = db.actuations
+    flagged = is_flagged(_active_ids(conn, profiles))
     is_fl = case((flagged, 1), else_=0)
     rank = func.row_number().over(partition_by=(a.c.profile, a.c.lot_id, a.c.rig_id, is_fl),
                                   order_by=(case((flagged, -a.c.id), else_=sampling_key(a.c.id)), a.c.id))
